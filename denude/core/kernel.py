@@ -1,0 +1,155 @@
+"""The per-cell job kernel: aligned input arrays in, rate arrays out. No I/O.
+
+``compute_block`` is the single function every runner calls (whole array, one window,
+one tile, one Dask chunk), so a tiled run equals a whole-array run bit for bit.
+
+Cell rules:
+- a cell is computed only where every input is valid (lithology code present and known,
+  runoff, PCO2 and temperature finite, soluble fraction in [0, 1]); else all outputs NaN;
+- insoluble rock gives 0 for every output;
+- runoff <= 0 gives 0 rate and drawdown (the equilibrium load is still reported);
+- temperature or PCO2 outside the constants' validity gives NaN and is counted;
+- the soluble-area fraction f_area scales the rate and the CO2 drawdown (cell mean), not
+  the dissolved load (a concentration in water draining the soluble part).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from denude.core.constants import CO2_PER_MOL, MINERALS, MOLAR_MASS_G_PER_MOL
+from denude.core.dissolution import (
+    check_chemistry,
+    equilibrium_load_mol_per_l,
+    out_of_range_mask,
+    warn_out_of_range,
+)
+from denude.core.rates import (
+    co2_drawdown_t_per_km2_yr,
+    denudation_mm_per_kyr,
+    effective_runoff_mm_per_yr,
+)
+from denude.core.rocks import RockLookup
+
+#: Output layers of the kernel, in a fixed order: name -> (quantity, unit).
+OUTPUT_LAYERS = {
+    "denudation_mm_per_kyr": ("maximum chemical denudation rate", "mm/kyr"),
+    "dissolved_load_mmol_per_l": ("equilibrium dissolved mineral load", "mmol/L"),
+    "co2_drawdown_t_per_km2_yr": ("CO2 drawn down by dissolution", "t CO2 km-2 yr-1"),
+}
+
+
+@dataclass
+class BlockCounts:
+    """Cell counts of one block; add them up over blocks and tiles."""
+
+    cells: int = 0
+    computed: int = 0          # valid output (including insoluble zeros)
+    nodata: int = 0            # some input was nodata
+    unknown_code: int = 0      # lithology code not in the rock table
+    out_of_range: int = 0      # temperature/PCO2/soluble fraction outside validity
+    zero_runoff: int = 0       # runoff <= 0 (rate 0)
+
+    def __add__(self, other: "BlockCounts") -> "BlockCounts":
+        return BlockCounts(**{k: getattr(self, k) + getattr(other, k) for k in self.__dataclass_fields__})
+
+    def as_dict(self) -> dict:
+        return {k: int(getattr(self, k)) for k in self.__dataclass_fields__}
+
+
+@dataclass
+class BlockResult:
+    """Kernel outputs for one block (float32 arrays, NaN where not computed)."""
+
+    denudation_mm_per_kyr: np.ndarray
+    dissolved_load_mmol_per_l: np.ndarray
+    co2_drawdown_t_per_km2_yr: np.ndarray
+    counts: BlockCounts = field(default_factory=BlockCounts)
+
+    def layers(self) -> dict[str, np.ndarray]:
+        return {name: getattr(self, name) for name in OUTPUT_LAYERS}
+
+
+def compute_block(
+    lithology_codes,
+    runoff_mm_per_yr,
+    pco2_atm,
+    temperature_c,
+    rocks: RockLookup,
+    chemistry: str = "white",
+    soluble_fraction=None,
+    lithology_valid=None,
+    warn: bool = True,
+) -> BlockResult:
+    """Rates for one block of aligned cells.
+
+    Parameters
+    ----------
+    lithology_codes : int array [code]; cells where ``lithology_valid`` is False are nodata
+    runoff_mm_per_yr, pco2_atm, temperature_c : float arrays [mm/yr, atm, degrees C], NaN = nodata
+    rocks : RockLookup from the rock table
+    chemistry : "white" or "speciated"
+    soluble_fraction : float array [0-1] or None (1 everywhere)
+    lithology_valid : bool array or None (all valid)
+    """
+    check_chemistry(chemistry)
+    codes = np.asarray(lithology_codes)
+    shape = codes.shape
+    q = np.broadcast_to(np.asarray(runoff_mm_per_yr, dtype=np.float64), shape)
+    p = np.broadcast_to(np.asarray(pco2_atm, dtype=np.float64), shape)
+    t = np.broadcast_to(np.asarray(temperature_c, dtype=np.float64), shape)
+    f_area = (
+        np.ones(shape) if soluble_fraction is None
+        else np.broadcast_to(np.asarray(soluble_fraction, dtype=np.float64), shape)
+    )
+    litho_ok = np.ones(shape, bool) if lithology_valid is None else np.asarray(lithology_valid, bool)
+
+    row = rocks.row_index(codes)
+    known = row >= 0
+    inputs_ok = litho_ok & np.isfinite(q) & np.isfinite(p) & np.isfinite(t) & np.isfinite(f_area)
+    bad_fraction = inputs_ok & ((f_area < 0.0) | (f_area > 1.0))
+    bad_chem = inputs_ok & out_of_range_mask(t, p)
+    ok = inputs_ok & known & ~bad_fraction & ~bad_chem
+
+    mineral = np.where(known, rocks.mineral_index[np.maximum(row, 0)], 0)
+    density = rocks.density_g_cm3[np.maximum(row, 0)] if len(rocks.codes) else np.ones(shape)
+    purity = rocks.purity[np.maximum(row, 0)] if len(rocks.codes) else np.ones(shape)
+
+    load_mol_per_l = np.full(shape, np.nan)
+    rate = np.full(shape, np.nan)
+    co2 = np.full(shape, np.nan)
+    insoluble = ok & (mineral == 0)
+    load_mol_per_l[insoluble] = 0.0
+    rate[insoluble] = 0.0
+    co2[insoluble] = 0.0
+    for index, name in enumerate(MINERALS):
+        if name == "insoluble":
+            continue
+        sel = ok & (mineral == index)
+        if not sel.any():
+            continue
+        load = equilibrium_load_mol_per_l(name, t[sel], p[sel], chemistry, warn=False)
+        q_sel = effective_runoff_mm_per_yr(q[sel])
+        load_mol_per_l[sel] = load
+        rate[sel] = denudation_mm_per_kyr(load, q_sel, MOLAR_MASS_G_PER_MOL[name], density[sel], purity[sel]) * f_area[sel]
+        co2[sel] = co2_drawdown_t_per_km2_yr(load, q_sel, CO2_PER_MOL[name]) * f_area[sel]
+
+    n_bad = int(np.count_nonzero((bad_chem | bad_fraction) & litho_ok & known))
+    counts = BlockCounts(
+        cells=int(codes.size),
+        computed=int(np.count_nonzero(ok)),
+        nodata=int(np.count_nonzero(~inputs_ok)),
+        unknown_code=int(np.count_nonzero(inputs_ok & ~known)),
+        out_of_range=n_bad,
+        zero_runoff=int(np.count_nonzero(ok & (q <= 0.0))),
+    )
+    if warn:
+        warn_out_of_range(n_bad)
+    return BlockResult(
+        denudation_mm_per_kyr=rate.astype(np.float32),
+        dissolved_load_mmol_per_l=(load_mol_per_l * 1e3).astype(np.float32),
+        co2_drawdown_t_per_km2_yr=co2.astype(np.float32),
+        counts=counts,
+    )

@@ -1,0 +1,44 @@
+"""Denudation rate, mineral flux and CO2 drawdown from an equilibrium load and runoff.
+
+Units (science notes section 1, derived): load c in mol/L, runoff q in mm/yr (= L m-2 yr-1),
+molar mass M in g/mol, density rho in g/cm3. Then ``M c q`` is g m-2 yr-1 (= t km-2 yr-1)
+and ``D = M c q / (rho f)`` is mm/kyr (1 mm/kyr = 1 m3 of rock per km2 per year), where f
+is the soluble mass fraction (purity) of the rock. Runoff <= 0 gives 0; NaN passes through.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from denude.core.constants import MOLAR_MASS_CO2_G_PER_MOL
+
+
+def effective_runoff_mm_per_yr(runoff_mm_per_yr):
+    """Runoff floored at zero (negative or zero runoff carries no dissolved load), mm/yr."""
+    q = np.asarray(runoff_mm_per_yr, dtype=np.float64)
+    return np.where(q > 0.0, q, np.where(np.isnan(q), np.nan, 0.0))
+
+
+def runoff_from_water_balance_mm_per_yr(precipitation_mm_per_yr, evapotranspiration_mm_per_yr):
+    """Runoff = precipitation - actual evapotranspiration, floored at 0, mm/yr."""
+    p = np.asarray(precipitation_mm_per_yr, dtype=np.float64)
+    e = np.asarray(evapotranspiration_mm_per_yr, dtype=np.float64)
+    return effective_runoff_mm_per_yr(p - e)
+
+
+def mineral_flux_t_per_km2_yr(load_mol_per_l, runoff_mm_per_yr, molar_mass_g_per_mol):
+    """Mass of mineral removed in solution, t km-2 yr-1 (= g m-2 yr-1): M c q."""
+    q = effective_runoff_mm_per_yr(runoff_mm_per_yr)
+    return np.asarray(molar_mass_g_per_mol, dtype=np.float64) * np.asarray(load_mol_per_l) * q
+
+
+def denudation_mm_per_kyr(load_mol_per_l, runoff_mm_per_yr, molar_mass_g_per_mol, density_g_cm3, purity=1.0):
+    """Maximum denudation rate D = M c q / (rho f), mm/kyr (White 1984; science notes 1, 7)."""
+    flux = mineral_flux_t_per_km2_yr(load_mol_per_l, runoff_mm_per_yr, molar_mass_g_per_mol)
+    return flux / (np.asarray(density_g_cm3, dtype=np.float64) * np.asarray(purity, dtype=np.float64))
+
+
+def co2_drawdown_t_per_km2_yr(load_mol_per_l, runoff_mm_per_yr, co2_per_mol_mineral):
+    """CO2 taken up by dissolution, t CO2 km-2 yr-1: n c q 44.01 (science notes section 6)."""
+    q = effective_runoff_mm_per_yr(runoff_mm_per_yr)
+    return np.asarray(co2_per_mol_mineral, dtype=np.float64) * np.asarray(load_mol_per_l) * q * MOLAR_MASS_CO2_G_PER_MOL

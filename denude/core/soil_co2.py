@@ -1,0 +1,34 @@
+"""Soil CO2 partial pressure: unit conversions and the Brook et al. (1983) model."""
+
+from __future__ import annotations
+
+import numpy as np
+
+#: Scale height for air pressure, m: p = exp(-z / 8400 m) atm (science notes section 4).
+AIR_PRESSURE_SCALE_HEIGHT_M = 8400.0
+
+
+def air_pressure_atm(elevation_m):
+    """Air pressure, atm, from elevation above sea level (m): exp(-z / 8400 m)."""
+    return np.exp(-np.asarray(elevation_m, dtype=np.float64) / AIR_PRESSURE_SCALE_HEIGHT_M)
+
+
+def ppmv_to_atm(pco2_ppmv, air_pressure_atm_=1.0):
+    """PCO2 in atm from a volume mixing ratio in ppmv and the air pressure in atm."""
+    return np.asarray(pco2_ppmv, dtype=np.float64) * 1e-6 * np.asarray(air_pressure_atm_, dtype=np.float64)
+
+
+def log10_atm_to_atm(log10_pco2_atm):
+    """PCO2 in atm from log10 PCO2 (log10 atm)."""
+    return 10.0 ** np.asarray(log10_pco2_atm, dtype=np.float64)
+
+
+def pco2_from_aet_atm(aet_mm_per_yr):
+    """Soil PCO2, atm, from actual evapotranspiration (mm/yr), Brook, Folkoff & Box (1983):
+
+    ``log10 PCO2 = -3.47 + 2.09 (1 - exp(-0.00172 AET))`` (coefficients from memory,
+    science notes section 4). Negative AET is floored at 0.
+    """
+    aet = np.asarray(aet_mm_per_yr, dtype=np.float64)
+    aet = np.where(aet < 0.0, 0.0, aet)
+    return 10.0 ** (-3.47 + 2.09 * (1.0 - np.exp(-0.00172 * aet)))

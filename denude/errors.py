@@ -1,0 +1,37 @@
+"""All exceptions raised by denude, under one root class.
+
+Specific errors also inherit a builtin so that callers catching builtins still work.
+The CLI turns any ``DenudeError`` into a one-line message on stderr and exit code 1.
+"""
+
+
+class DenudeError(Exception):
+    """Root of every error a user can cause (bad input, bad settings)."""
+
+
+class InputError(DenudeError, ValueError):
+    """An input file or value is missing, unreadable or implausible."""
+
+
+class RockTableError(InputError):
+    """The rock table (built-in or CSV) is invalid or lacks a code."""
+
+
+class JobFileError(InputError):
+    """The TOML job file has unknown keys or bad values."""
+
+
+class GridError(InputError):
+    """Inputs cannot be put on one target grid (no CRS, no overlap, bad resolution)."""
+
+
+class OutputError(DenudeError, OSError):
+    """An output cannot be written safely (exists, equals an input, not writable)."""
+
+
+class ZoneError(InputError):
+    """A zone, planning-unit or point layer is unusable (empty, no CRS, bad id field)."""
+
+
+class OutOfRangeWarning(UserWarning):
+    """Some cells were outside the validity range of the constants and became NaN."""
