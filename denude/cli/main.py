@@ -9,10 +9,43 @@ import importlib
 import sys
 
 import typer
+from typer.core import TyperGroup
 
+from denude import __version__
 from denude.errors import DenudeError
 
+
+class OneLineErrorGroup(TyperGroup):
+    """A command group whose usage errors are one line on stderr (exit code 2)."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        try:
+            rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
+                              standalone_mode=False, **extra)
+        except typer.TyperException as exc:
+            if not standalone_mode:
+                raise
+            if type(exc).__name__ == "NoArgsIsHelpError":  # bare command: show its help
+                exc.show()
+                sys.exit(exc.exit_code)
+            hint = ""
+            ctx = getattr(exc, "ctx", None)
+            if ctx is not None:
+                hint = f" (see '{ctx.command_path} --help')"
+            typer.echo(f"denude: usage error: {' '.join(exc.format_message().split())}{hint}", err=True)
+            sys.exit(exc.exit_code)
+        except typer.Abort:
+            if not standalone_mode:
+                raise
+            typer.echo("denude: aborted", err=True)
+            sys.exit(1)
+        if not standalone_mode:
+            return rv
+        sys.exit(rv if isinstance(rv, int) else 0)
+
+
 app = typer.Typer(
+    cls=OneLineErrorGroup,
     name="denude",
     help=(
         "Maximum chemical denudation rates (mm/kyr) of limestone, dolomite and gypsum "
@@ -33,6 +66,19 @@ COMMAND_MODULES = (
     "denude.cli.batch_cmd",
     "denude.cli.demo_cmd",
 )
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"denude {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True, help="Show the version and exit."),
+) -> None:
+    """Maximum chemical denudation rates (mm/kyr) from regional rasters."""
+
 
 for _name in COMMAND_MODULES:
     try:

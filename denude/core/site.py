@@ -1,0 +1,86 @@
+"""Rates at a single site: the site calculator's library function (no I/O)."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from denude.core.constants import CO2_PER_MOL, MOLAR_MASS_G_PER_MOL
+from denude.core.dissolution import equilibrium_load_mol_per_l
+from denude.core.rates import (
+    co2_drawdown_t_per_km2_yr,
+    denudation_mm_per_kyr,
+    effective_runoff_mm_per_yr,
+    mineral_flux_t_per_km2_yr,
+)
+from denude.core.rocks import RockType
+
+
+@dataclass(frozen=True)
+class SiteResult:
+    """Rates at one site (units in the field names)."""
+
+    rock: str
+    mineral: str
+    chemistry: str
+    temperature_c: float
+    pco2_atm: float
+    runoff_mm_per_yr: float
+    density_g_cm3: float
+    purity: float
+    soluble_fraction: float
+    dissolved_load_mmol_per_l: float
+    mineral_flux_t_per_km2_yr: float
+    rock_mass_t_per_km2_yr: float
+    denudation_mm_per_kyr: float
+    co2_drawdown_t_per_km2_yr: float
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+def site_rates(
+    rock: RockType,
+    temperature_c: float,
+    pco2_atm: float,
+    runoff_mm_per_yr: float,
+    chemistry: str = "white",
+    soluble_fraction: float = 1.0,
+) -> SiteResult:
+    """Maximum denudation, mineral flux and CO2 drawdown at one site.
+
+    temperature_c [degrees C], pco2_atm [atm], runoff_mm_per_yr [mm/yr], soluble_fraction [0-1]
+    (share of the site's area that is soluble rock). Out-of-range inputs give NaN (with a
+    warning from the core).
+    """
+    q = float(effective_runoff_mm_per_yr(runoff_mm_per_yr))
+    if rock.mineral == "insoluble":
+        load = 0.0
+    else:
+        load = float(equilibrium_load_mol_per_l(rock.mineral, temperature_c, pco2_atm, chemistry))
+    molar_mass = MOLAR_MASS_G_PER_MOL[rock.mineral]
+    flux = float(mineral_flux_t_per_km2_yr(load, q, molar_mass)) * soluble_fraction
+    rate = float(denudation_mm_per_kyr(load, q, molar_mass, rock.density_g_cm3, rock.purity)) * soluble_fraction
+    co2 = float(co2_drawdown_t_per_km2_yr(load, q, CO2_PER_MOL[rock.mineral])) * soluble_fraction
+    return SiteResult(
+        rock=rock.name,
+        mineral=rock.mineral,
+        chemistry=chemistry,
+        temperature_c=float(temperature_c),
+        pco2_atm=float(pco2_atm),
+        runoff_mm_per_yr=q,
+        density_g_cm3=rock.density_g_cm3,
+        purity=rock.purity,
+        soluble_fraction=float(soluble_fraction),
+        dissolved_load_mmol_per_l=load * 1e3,
+        mineral_flux_t_per_km2_yr=flux,
+        rock_mass_t_per_km2_yr=flux / rock.purity,
+        denudation_mm_per_kyr=rate,
+        co2_drawdown_t_per_km2_yr=co2,
+    )
+
+
+def finite_or_none(value: float):
+    """JSON has no NaN: map non-finite numbers to None."""
+    return float(value) if np.isfinite(value) else None
