@@ -1,0 +1,337 @@
+"""Per-zone partial sums of the denudation maps, mergeable across tiles. Pure numpy, no I/O.
+
+Every cell enters a zone with a weight ``w = coverage fraction x cell area [km2]``. The
+accumulator keeps, per zone, float64 sums that add exactly across blocks and tiles:
+
+* areas [km2]: all cells, cells with a valid rate, soluble rock, per hazard class, per rock row;
+* cell counts (cells with coverage > 0, whole cells, valid rate or nodata rate);
+* sum(w*D), sum(w*D**2), min(D), max(D) of the rate D [mm/kyr];
+* sum(w*D) [m3/yr, since 1 mm/kyr over 1 km2 is 1 m3/yr], sum(w*D*density) [t/yr],
+  sum(w*CO2) [t/yr];
+* a weighted histogram of D on fixed bins (``RATE_BIN_EDGES_MM_PER_KYR``), for percentiles;
+* sinkhole points: count, count with a valid rate, sum of their rates.
+
+Percentile resolution: bin 0 holds exact zeros (insoluble rock), bin 1 holds (0, 0.01)
+mm/kyr, then 4000 log-spaced bins from 0.01 to 10000 mm/kyr (each 0.35 % wide), and a last
+bin for rates >= 10000 mm/kyr. Inside a bin the weight is spread uniformly between the bin
+edges clipped to the zone's exact min and max, so a percentile is within one bin width
+(0.35 % of the value, or 0.01 mm/kyr below 0.01 mm/kyr) of the exact weighted percentile,
+and exact for a zone of constant rate.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+#: Lower edge of the log-spaced bins [mm/kyr]; below it (but > 0) is one bin.
+RATE_BIN_LOW_MM_PER_KYR = 0.01
+#: Upper edge of the log-spaced bins [mm/kyr]; at or above it is one overflow bin.
+RATE_BIN_HIGH_MM_PER_KYR = 10000.0
+#: Number of log-spaced bins between the low and high edges.
+RATE_LOG_BINS = 4000
+#: Edges of the log-spaced bins [mm/kyr] (RATE_LOG_BINS + 1 values).
+RATE_BIN_EDGES_MM_PER_KYR = np.logspace(
+    np.log10(RATE_BIN_LOW_MM_PER_KYR), np.log10(RATE_BIN_HIGH_MM_PER_KYR), RATE_LOG_BINS + 1
+)
+#: Total histogram bins: zero, (0, low), the log bins, overflow.
+N_RATE_BINS = RATE_LOG_BINS + 3
+#: Relative width of one log bin (the percentile resolution above 0.01 mm/kyr).
+PERCENTILE_RELATIVE_RESOLUTION = float(RATE_BIN_EDGES_MM_PER_KYR[1] / RATE_BIN_EDGES_MM_PER_KYR[0] - 1)
+
+#: Percentiles reported by ``finalize`` [%].
+PERCENTILES = (10, 50, 90)
+
+#: Above this many zone x bin entries the histogram is kept sparse (sorted keys).
+DENSE_HISTOGRAM_LIMIT = 1 << 25
+
+_LOWER = np.concatenate(([0.0, 0.0], RATE_BIN_EDGES_MM_PER_KYR))            # per bin
+_UPPER = np.concatenate(([0.0], RATE_BIN_EDGES_MM_PER_KYR, [np.inf]))
+
+
+def rate_bin_index(rate_mm_per_kyr) -> np.ndarray:
+    """Histogram bin (int64) of each finite, non-negative rate [mm/kyr]."""
+    rate = np.asarray(rate_mm_per_kyr, dtype=np.float64)
+    idx = np.searchsorted(RATE_BIN_EDGES_MM_PER_KYR, rate, side="right") + 1
+    return np.where(rate <= 0.0, 0, idx).astype(np.int64)
+
+
+def _group_bounds(sorted_zone: np.ndarray):
+    """Start of each run of equal zone indices in a sorted array, and the run's zone."""
+    if sorted_zone.size == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    starts = np.flatnonzero(np.r_[True, sorted_zone[1:] != sorted_zone[:-1]])
+    return starts, sorted_zone[starts]
+
+
+class ZonalAccumulator:
+    """Mergeable per-zone partial sums of rate [mm/kyr], areas [km2] and fluxes.
+
+    ``add`` a block of cells, ``merge`` another accumulator over the same zones (e.g. from
+    another tile), ``finalize`` to columns. Rates are cell means already scaled by the
+    soluble-area fraction, as in the ``denude map`` output folder.
+    """
+
+    def __init__(self, n_zones: int, n_classes: int = 0, n_rocks: int = 0, dense_limit: int = DENSE_HISTOGRAM_LIMIT):
+        self.n_zones = int(n_zones)
+        self.n_classes = int(n_classes)
+        self.n_rocks = int(n_rocks)
+        n = self.n_zones
+        f = lambda: np.zeros(n, np.float64)  # noqa: E731
+        self.area_km2 = f()
+        self.valid_area_km2 = f()
+        self.soluble_area_km2 = f()
+        self.sum_w_rate = f()           # km2 * mm/kyr = m3/yr
+        self.sum_w_rate2 = f()          # km2 * (mm/kyr)^2
+        self.sum_w_rate_density = f()   # km2 * mm/kyr * t/m3 = t/yr
+        self.sum_w_co2 = f()            # km2 * t/km2/yr = t/yr
+        self.min_rate = np.full(n, np.inf)
+        self.max_rate = np.full(n, -np.inf)
+        self.valid_cells = np.zeros(n, np.int64)
+        self.nodata_cells = np.zeros(n, np.int64)
+        self.class_area_km2 = np.zeros((n, self.n_classes), np.float64)
+        self.rock_area_km2 = np.zeros((n, self.n_rocks), np.float64)
+        self.point_count = np.zeros(n, np.int64)
+        self.point_valid = np.zeros(n, np.int64)
+        self.point_sum_rate = f()
+        self.dense = n * N_RATE_BINS <= dense_limit
+        if self.dense:
+            self.hist = np.zeros((n, N_RATE_BINS), np.float64)
+        else:
+            self.hist_keys = np.zeros(0, np.int64)
+            self.hist_weights = np.zeros(0, np.float64)
+
+    # -- accumulation -------------------------------------------------------------------
+    def add(self, zone_index, weight_km2, rate_mm_per_kyr, *, soluble_fraction=None,
+            co2_t_per_km2_yr=None, density_g_cm3=None, hazard_class=None, rock_index=None):
+        """Add cells: zone index, weight = coverage x cell area [km2], rate [mm/kyr] (NaN =
+        nodata); optional soluble-area fraction [-], CO2 drawdown [t/km2/yr], rock density
+        [g/cm3 = t/m3] (NaN = unknown), hazard class (uint8, 255 = nodata) and rock row
+        (-1 = none). One entry per (zone, cell) pair; cells with weight 0 are ignored."""
+        zone = np.asarray(zone_index, dtype=np.int64).ravel()
+        w = np.asarray(weight_km2, dtype=np.float64).ravel()
+        rate = np.asarray(rate_mm_per_kyr, dtype=np.float64).ravel()
+        keep = w > 0
+        if not keep.all():
+            zone, w, rate = zone[keep], w[keep], rate[keep]
+        pick = (lambda a: np.asarray(a).ravel()[keep]) if not keep.all() else (lambda a: np.asarray(a).ravel())
+        if zone.size == 0:
+            return self
+        n = self.n_zones
+        valid = ~np.isnan(rate)
+        self.area_km2 += np.bincount(zone, w, n)
+        if soluble_fraction is not None:
+            sf = pick(soluble_fraction).astype(np.float64)
+            self.soluble_area_km2 += np.bincount(zone, w * np.nan_to_num(sf, nan=0.0), n)
+        counts = np.bincount(zone, minlength=n)
+        vcounts = np.bincount(zone[valid], minlength=n)
+        self.valid_cells += vcounts
+        self.nodata_cells += counts - vcounts
+        if hazard_class is not None and self.n_classes:
+            hz = pick(hazard_class).astype(np.int64)
+            ok = hz < self.n_classes
+            self.class_area_km2 += np.bincount(
+                zone[ok] * self.n_classes + hz[ok], w[ok], n * self.n_classes
+            ).reshape(n, self.n_classes)
+        if rock_index is not None and self.n_rocks:
+            rk = pick(rock_index).astype(np.int64)
+            ok = (rk >= 0) & (rk < self.n_rocks)
+            self.rock_area_km2 += np.bincount(
+                zone[ok] * self.n_rocks + rk[ok], w[ok], n * self.n_rocks
+            ).reshape(n, self.n_rocks)
+        if co2_t_per_km2_yr is not None:
+            co2 = pick(co2_t_per_km2_yr).astype(np.float64)
+            self.sum_w_co2 += np.bincount(zone, w * np.nan_to_num(co2, nan=0.0), n)
+        if not valid.any():
+            return self
+        dens = pick(density_g_cm3).astype(np.float64)[valid] if density_g_cm3 is not None else None
+        zone, w, rate = zone[valid], w[valid], rate[valid]
+        wr = w * rate
+        self.valid_area_km2 += np.bincount(zone, w, n)
+        self.sum_w_rate += np.bincount(zone, wr, n)
+        self.sum_w_rate2 += np.bincount(zone, wr * rate, n)
+        if dens is not None:
+            self.sum_w_rate_density += np.bincount(zone, wr * np.nan_to_num(dens, nan=0.0), n)
+        # min / max: reduce over runs of equal zone index (sort only if not grouped already)
+        if zone.size > 1 and np.any(zone[1:] < zone[:-1]):
+            order = np.argsort(zone, kind="stable")
+            szone, srate = zone[order], rate[order]
+        else:
+            szone, srate = zone, rate
+        starts, zones = _group_bounds(szone)
+        np.minimum.at(self.min_rate, zones, np.minimum.reduceat(srate, starts))
+        np.maximum.at(self.max_rate, zones, np.maximum.reduceat(srate, starts))
+        # histogram
+        key = zone * N_RATE_BINS + rate_bin_index(rate)
+        if self.dense:
+            self.hist += np.bincount(key, w, n * N_RATE_BINS).reshape(n, N_RATE_BINS)
+        else:
+            self._sparse_add(key, w)
+        return self
+
+    def _sparse_add(self, keys, weights):
+        keys = np.concatenate((self.hist_keys, keys))
+        weights = np.concatenate((self.hist_weights, weights))
+        uniq, inverse = np.unique(keys, return_inverse=True)
+        self.hist_keys = uniq
+        self.hist_weights = np.bincount(inverse.ravel(), weights, uniq.size)
+
+    def add_points(self, zone_index, rate_mm_per_kyr):
+        """Add sampled points (e.g. sinkholes): zone index per (point, zone) pair and the rate
+        [mm/kyr] at the point (NaN = nodata)."""
+        zone = np.asarray(zone_index, dtype=np.int64).ravel()
+        rate = np.asarray(rate_mm_per_kyr, dtype=np.float64).ravel()
+        valid = ~np.isnan(rate)
+        n = self.n_zones
+        self.point_count += np.bincount(zone, minlength=n)
+        self.point_valid += np.bincount(zone[valid], minlength=n)
+        self.point_sum_rate += np.bincount(zone[valid], rate[valid], n)
+        return self
+
+    # -- merging and state ----------------------------------------------------------------
+    _SUMS = ("area_km2", "valid_area_km2", "soluble_area_km2", "sum_w_rate", "sum_w_rate2",
+             "sum_w_rate_density", "sum_w_co2", "valid_cells", "nodata_cells", "class_area_km2",
+             "rock_area_km2", "point_count", "point_valid", "point_sum_rate")
+
+    def merge(self, other: "ZonalAccumulator") -> "ZonalAccumulator":
+        """Add another accumulator over the same zones (e.g. another tile) into this one."""
+        if (other.n_zones, other.n_classes, other.n_rocks) != (self.n_zones, self.n_classes, self.n_rocks):
+            raise ValueError("cannot merge zonal partials over different zones, classes or rocks")
+        for name in self._SUMS:
+            getattr(self, name).__iadd__(getattr(other, name))
+        np.minimum(self.min_rate, other.min_rate, out=self.min_rate)
+        np.maximum(self.max_rate, other.max_rate, out=self.max_rate)
+        if self.dense and other.dense:
+            self.hist += other.hist
+        else:
+            keys, weights = other._hist_sparse()
+            if self.dense:
+                self.hist.ravel()[keys] += weights  # keys are unique
+            else:
+                self._sparse_add(keys, weights)
+        return self
+
+    def _hist_sparse(self):
+        """Histogram as (sorted unique keys zone*N_RATE_BINS+bin, weights [km2])."""
+        if self.dense:
+            flat = self.hist.ravel()
+            keys = np.flatnonzero(flat)
+            return keys, flat[keys]
+        return self.hist_keys, self.hist_weights
+
+    def state(self) -> dict:
+        """Partial sums as plain arrays (e.g. for ``np.savez``); see ``from_state``."""
+        out = {name: getattr(self, name) for name in self._SUMS}
+        out["min_rate"], out["max_rate"] = self.min_rate, self.max_rate
+        out["hist_keys"], out["hist_weights"] = self._hist_sparse()
+        out["shape"] = np.array([self.n_zones, self.n_classes, self.n_rocks], np.int64)
+        return out
+
+    @classmethod
+    def from_state(cls, state) -> "ZonalAccumulator":
+        n_zones, n_classes, n_rocks = (int(v) for v in state["shape"])
+        acc = cls(n_zones, n_classes, n_rocks, dense_limit=-1)
+        for name in cls._SUMS + ("min_rate", "max_rate"):
+            setattr(acc, name, np.array(state[name], copy=True))
+        acc.hist_keys = np.array(state["hist_keys"], np.int64)
+        acc.hist_weights = np.array(state["hist_weights"], np.float64)
+        return acc
+
+    # -- results ------------------------------------------------------------------------
+    def percentiles(self, percents=PERCENTILES) -> np.ndarray:
+        """Area-weighted percentiles of the rate [mm/kyr], shape (n_zones, len(percents));
+        NaN for zones without valid cells. Resolution: see the module docstring."""
+        percents = np.asarray(percents, dtype=np.float64)
+        out = np.full((self.n_zones, percents.size), np.nan)
+        keys, weights = self._hist_sparse()
+        if keys.size == 0:
+            return out
+        zone = keys // N_RATE_BINS
+        bins = keys % N_RATE_BINS
+        starts, zones = _group_bounds(zone)
+        cum = np.cumsum(weights)
+        before_group = np.r_[0.0, cum][starts]                  # cum at the start of each zone
+        total = np.add.reduceat(weights, starts)
+        group_of = np.repeat(np.arange(zones.size), np.diff(np.r_[starts, keys.size]))
+        cum_in = cum - before_group[group_of]                   # cumulative weight within zone
+        frac = cum_in / total[group_of]
+        frac[np.r_[starts[1:] - 1, keys.size - 1]] = 1.0        # last entry of each zone
+        position = group_of + frac                              # non-decreasing overall
+        zmin, zmax = self.min_rate[zones], self.max_rate[zones]
+        for j, p in enumerate(percents):
+            q = min(max(p / 100.0, 0.0), 1.0)
+            target = np.arange(zones.size) + q
+            idx = np.searchsorted(position, target - 1e-12 * (q > 0), side="left")
+            idx = np.minimum(np.maximum(idx, starts), np.r_[starts[1:], keys.size] - 1)
+            w_bin = weights[idx]
+            below = cum_in[idx] - w_bin
+            t = np.clip((q * total - below) / w_bin, 0.0, 1.0)
+            lo = np.clip(_LOWER[bins[idx]], zmin, zmax)
+            hi = np.clip(_UPPER[bins[idx]], zmin, zmax)
+            out[zones, j] = lo + t * (hi - lo)
+        return out
+
+    def finalize(self, class_names=None, rock_names=None, with_points=None) -> dict[str, np.ndarray]:
+        """Columns per zone (name -> array), units in the names. ``class_names`` label the
+        hazard columns, ``rock_names`` the rock rows (for ``dominant_rock``); sinkhole columns
+        appear if ``with_points`` (default: if any point was added)."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            has = self.valid_area_km2 > 0
+            mean = np.where(has, self.sum_w_rate / np.where(has, self.valid_area_km2, 1), np.nan)
+            var = np.where(has, self.sum_w_rate2 / np.where(has, self.valid_area_km2, 1) - mean**2, np.nan)
+            std = np.sqrt(np.maximum(var, 0.0))
+            area = self.area_km2
+            some = area > 0
+            pct = self.percentiles()
+            cols: dict[str, np.ndarray] = {
+                "area_km2": area,
+                "valid_area_km2": self.valid_area_km2,
+                "soluble_area_km2": self.soluble_area_km2,
+                "soluble_area_fraction": np.where(some, self.soluble_area_km2 / np.where(some, area, 1), np.nan),
+                "valid_cells": self.valid_cells,
+                "nodata_cells": self.nodata_cells,
+                "denudation_mean_mm_per_kyr": mean,
+                "denudation_std_mm_per_kyr": np.where(has, std, np.nan),
+                "denudation_min_mm_per_kyr": np.where(has, self.min_rate, np.nan),
+                "denudation_max_mm_per_kyr": np.where(has, self.max_rate, np.nan),
+            }
+            for j, p in enumerate(PERCENTILES):
+                cols[f"denudation_p{p}_mm_per_kyr"] = pct[:, j]
+            cols["rock_volume_m3_per_yr"] = self.sum_w_rate
+            cols["rock_mass_t_per_yr"] = self.sum_w_rate_density
+            cols["co2_drawdown_t_per_yr"] = self.sum_w_co2
+            if self.n_classes:
+                names = [column_label(c) for c in (class_names or [str(k) for k in range(self.n_classes)])]
+                for k, name in enumerate(names):
+                    cols[f"hazard_area_km2_{name}"] = self.class_area_km2[:, k]
+                for k, name in enumerate(names):
+                    cols[f"hazard_share_{name}"] = np.where(
+                        some, self.class_area_km2[:, k] / np.where(some, area, 1), np.nan
+                    )
+                present = self.class_area_km2 > 0
+                top = self.n_classes - 1 - np.argmax(present[:, ::-1], axis=1)
+                cols["hazard_max_class"] = np.where(present.any(axis=1), top, -1).astype(np.int64)
+            if self.n_rocks:
+                labels = list(rock_names or [str(k) for k in range(self.n_rocks)])
+                best = np.argmax(self.rock_area_km2, axis=1)
+                found = self.rock_area_km2.max(axis=1) > 0
+                cols["dominant_rock"] = np.array(
+                    [labels[b] if f else "" for b, f in zip(best, found)], dtype=object
+                )
+                cols["dominant_rock_share"] = np.where(
+                    found & some, self.rock_area_km2.max(axis=1) / np.where(some, area, 1), np.nan
+                )
+            if with_points or (with_points is None and self.point_count.any()):
+                pmean = np.where(self.point_valid > 0, self.point_sum_rate / np.maximum(self.point_valid, 1), np.nan)
+                cols["sinkhole_count"] = self.point_count
+                cols["sinkhole_density_per_km2"] = np.where(some, self.point_count / np.where(some, area, 1), np.nan)
+                cols["sinkhole_mean_rate_mm_per_kyr"] = pmean
+                cols["sinkhole_rate_ratio"] = np.where(mean > 0, pmean / np.where(mean > 0, mean, 1), np.nan)
+        return cols
+
+
+def column_label(name: str) -> str:
+    """A class or rock name as a column suffix: lower case, runs of other characters -> '_'."""
+    out = "".join(ch if ch.isalnum() else "_" for ch in str(name).strip().lower())
+    while "__" in out:
+        out = out.replace("__", "_")
+    return out.strip("_") or "unnamed"

@@ -1,0 +1,585 @@
+"""Per-zone summaries of a ``denude map`` output folder (the library side of ``denude summarize``).
+
+Method, in one pass over the rasters:
+
+1. The grid is cut into strips of whole rows. For each strip, exactextract gives the
+   coverage fraction of every cell touched by every zone (``cell_id`` and ``coverage``
+   operations over a grid-only raster source, so no pixel is read by exactextract).
+2. Each raster of the folder is read strip by strip, once, and the covered cells are
+   gathered and added to a ``denude.core.zonal.ZonalAccumulator`` (float64 partial sums and
+   a weighted histogram, mergeable across tiles) with weight = coverage x cell area [km2].
+3. Cell areas: planar |a*e| for a projected CRS; in a geographic CRS the geodesic area of
+   one cell per row on the CRS ellipsoid (pyproj.Geod; it depends on latitude only).
+
+Cell counts (``valid_cells``, ``nodata_cells``) count whole cells with coverage > 0.
+``area_km2`` is the zone's area on the raster grid (the part outside the grid is not counted).
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import datetime as _dt
+import hashlib
+import json
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable, Optional
+
+import numpy as np
+import shapely
+
+from denude import __version__
+from denude.core.hazard import DEFAULT_CLASS_NAMES, HAZARD_NODATA
+from denude.core.zonal import PERCENTILE_RELATIVE_RESOLUTION, ZonalAccumulator
+from denude.errors import GridError, InputError, OutputError, ZoneError
+
+#: Raster files of the ``denude map`` output folder read here (DEVELOPERS.md contract).
+RATE_TIF = "denudation_mm_per_kyr.tif"
+CO2_TIF = "co2_drawdown_t_per_km2_yr.tif"
+HAZARD_TIF = "hazard_class.tif"
+LITHOLOGY_TIF = "lithology_code.tif"
+SOLUBLE_TIF = "soluble_area_fraction.tif"
+ROCKS_CSV = "rocks.csv"
+REQUIRED_FILES = (RATE_TIF, CO2_TIF, HAZARD_TIF, LITHOLOGY_TIF, SOLUBLE_TIF, ROCKS_CSV)
+
+#: Target number of cells per strip (bounds the memory: about 60 bytes per cell).
+STRIP_CELLS = 1 << 22
+
+ZONES_LAYER = "zones"
+UNITS_LAYER = "planning_units"
+POINTS_LAYER = "sinkholes"
+
+#: Units of the output columns (also written to the summary sidecar).
+COLUMN_UNITS = {
+    "area_km2": "km2", "valid_area_km2": "km2", "soluble_area_km2": "km2",
+    "soluble_area_fraction": "1", "valid_cells": "cells", "nodata_cells": "cells",
+    "denudation_mean_mm_per_kyr": "mm/kyr", "denudation_std_mm_per_kyr": "mm/kyr",
+    "denudation_min_mm_per_kyr": "mm/kyr", "denudation_max_mm_per_kyr": "mm/kyr",
+    "denudation_p10_mm_per_kyr": "mm/kyr", "denudation_p50_mm_per_kyr": "mm/kyr",
+    "denudation_p90_mm_per_kyr": "mm/kyr", "rock_volume_m3_per_yr": "m3/yr",
+    "rock_mass_t_per_yr": "t/yr", "co2_drawdown_t_per_yr": "t/yr",
+    "hazard_area_km2_*": "km2", "hazard_share_*": "1", "hazard_max_class": "class index (-1 none)",
+    "dominant_rock": "rock name", "dominant_rock_share": "1", "sinkhole_count": "points",
+    "sinkhole_density_per_km2": "1/km2", "sinkhole_mean_rate_mm_per_kyr": "mm/kyr",
+    "sinkhole_rate_ratio": "1", "denudation_mm_per_kyr": "mm/kyr",
+    "hazard_class": "class index (255 nodata)",
+}
+
+
+# -- grid ---------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Grid:
+    """A north-up raster grid: affine transform, shape and CRS."""
+
+    transform: object   # affine.Affine
+    width: int
+    height: int
+    crs: object         # rasterio CRS
+
+    @property
+    def bounds(self):
+        t = self.transform
+        return (t.c, t.f + self.height * t.e, t.c + self.width * t.a, t.f)
+
+
+def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
+    """Area of one cell of each row [km2] (float64, length ``height``) and the method used:
+    geodesic on the CRS ellipsoid for a geographic CRS, else planar |a*e| (CRS units in m)."""
+    t = grid.transform
+    if grid.crs.is_geographic:
+        from pyproj import CRS
+
+        geod = CRS.from_user_input(grid.crs.to_wkt()).get_geod()
+        lons = t.c + np.linspace(0.0, t.a, 17)
+        edges = np.clip(t.f + np.arange(grid.height + 1) * t.e, -90.0, 90.0)
+        areas = np.empty(grid.height)
+        for i in range(grid.height):
+            top, bottom = edges[i], edges[i + 1]
+            ring_lon = np.concatenate((lons, lons[::-1]))
+            ring_lat = np.concatenate((np.full(lons.size, top), np.full(lons.size, bottom)))
+            areas[i] = abs(geod.polygon_area_perimeter(ring_lon, ring_lat)[0]) / 1e6
+        method = f"geodesic (pyproj.Geod on the {geod.initstring.strip()} ellipsoid, per row)"
+        return areas, method
+    from pyproj import CRS
+
+    axes = CRS.from_user_input(grid.crs.to_wkt()).axis_info
+    factor = axes[0].unit_conversion_factor if axes else 1.0
+    if axes and axes[0].unit_name.lower() in ("degree", "radian", "grad"):
+        raise GridError(f"raster CRS axis unit {axes[0].unit_name!r} is not linear; reproject the maps to a metric or geographic CRS")
+    area = abs(t.a * t.e - t.b * t.d) * factor * factor / 1e6
+    return np.full(grid.height, area), "planar (|a*e| of the geotransform)"
+
+
+class _GridSource:
+    """exactextract raster source for one strip of the grid that holds no data (zeros)."""
+
+    def __new__(cls, *args, **kwargs):  # built lazily so importing this module is cheap
+        from exactextract.raster import RasterSource
+
+        class GridOnlySource(RasterSource):
+            def __init__(self, extent, nx, ny):
+                super().__init__()
+                self._extent, self._nx, self._ny = extent, nx, ny
+
+            def res(self):
+                e = self._extent
+                return ((e[2] - e[0]) / self._nx, (e[3] - e[1]) / self._ny)
+
+            def extent(self):
+                return self._extent
+
+            def srs_wkt(self):
+                return None
+
+            def nodata_value(self):
+                return None
+
+            def read_window(self, x0, y0, nx, ny):
+                return np.zeros((ny, nx), dtype=np.uint8)
+
+        return GridOnlySource(*args, **kwargs)
+
+
+def _features(wkbs, index):
+    from exactextract.feature import Feature, FeatureSource
+
+    class WkbFeature(Feature):
+        def __init__(self, wkb, i):
+            Feature.__init__(self)
+            self._wkb, self._i = wkb, i
+
+        def geometry(self):
+            return self._wkb
+
+        def get(self, name):
+            return self._i
+
+        def fields(self):
+            return ["zone_index"]
+
+        def set_geometry_format(self):
+            return "wkb"
+
+    class WkbSource(FeatureSource):
+        def __init__(self):
+            super().__init__()
+
+        def count(self):
+            return len(index)
+
+        def __iter__(self):
+            for wkb, i in zip(wkbs, index):
+                yield WkbFeature(wkb, int(i))
+
+        def srs_wkt(self):
+            return None
+
+    return WkbSource()
+
+
+def coverage_pairs(extent, nx, ny, wkbs, index):
+    """Coverage fractions of the cells of an ``ny`` x ``nx`` grid with ``extent``
+    (xmin, ymin, xmax, ymax) by each polygon (WKB): returns zone index, flat cell index
+    (row-major in the grid) and coverage fraction [0-1], grouped by zone in input order."""
+    from exactextract import exact_extract
+
+    result = exact_extract(
+        _GridSource(extent, nx, ny), _features(wkbs, index), ["cell_id", "coverage"], output="pandas"
+    )
+    cells = list(result["cell_id"])
+    covs = list(result["coverage"])
+    lengths = np.fromiter((len(c) for c in cells), np.int64, len(cells))
+    if lengths.sum() == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.float64)
+    zone = np.repeat(np.asarray(index, np.int64), lengths)
+    return zone, np.concatenate(cells).astype(np.int64), np.concatenate(covs).astype(np.float64)
+
+
+# -- inputs -------------------------------------------------------------------------------
+def _open_outdir(outdir: Path):
+    import rasterio
+
+    missing = [name for name in REQUIRED_FILES if not (outdir / name).is_file()]
+    if not outdir.is_dir():
+        raise InputError(f"{outdir}: not a folder; give the output folder of 'denude map'")
+    if missing:
+        raise InputError(f"{outdir}: missing {', '.join(missing)}; give the complete output folder of 'denude map'")
+    datasets = {}
+    try:
+        for name in REQUIRED_FILES[:-1]:
+            try:
+                datasets[name] = rasterio.open(outdir / name)
+            except rasterio.errors.RasterioIOError as exc:
+                raise InputError(f"{outdir / name}: not a readable raster ({' '.join(str(exc).split())}); rerun 'denude map'") from None
+        ref = datasets[RATE_TIF]
+        if ref.crs is None:
+            raise GridError(f"{outdir / RATE_TIF}: has no CRS; rerun 'denude map' with a target CRS")
+        t = ref.transform
+        if t.b != 0 or t.d != 0 or t.e >= 0 or t.a <= 0:
+            raise GridError(f"{outdir / RATE_TIF}: grid is rotated or not north-up ({tuple(t)[:6]}); warp it to a north-up grid")
+        for name, ds in datasets.items():
+            if (ds.width, ds.height) != (ref.width, ref.height) or not ds.transform.almost_equals(t) or ds.crs != ref.crs:
+                raise GridError(f"{outdir / name}: grid differs from {RATE_TIF}; rerun 'denude map' so all maps share one grid")
+    except Exception:
+        for ds in datasets.values():
+            ds.close()
+        raise
+    return datasets, Grid(t, ref.width, ref.height, ref.crs)
+
+
+def hazard_class_names(dataset) -> list[str]:
+    """Class names of ``hazard_class.tif``, from its tags (a JSON list or a comma-separated
+    value under a key such as ``class_names``), else the built-in names."""
+    tags = {**dataset.tags(), **dataset.tags(1)}
+    lowered = {k.lower(): v for k, v in tags.items()}
+    for key in ("class_names", "hazard_class_names", "hazard_classes", "names", "classes"):
+        value = lowered.get(key)
+        if not value:
+            continue
+        try:
+            names = json.loads(value)
+            if isinstance(names, dict):
+                names = [names[k] for k in sorted(names, key=lambda s: int(s))]
+        except (ValueError, TypeError):
+            sep = "|" if "|" in value else (";" if ";" in value else ",")
+            names = [v.strip() for v in value.split(sep)]
+        names = [str(n) for n in names if str(n).strip()]
+        if names:
+            return names
+    return list(DEFAULT_CLASS_NAMES)
+
+
+def file_sha256(path) -> str:
+    """SHA-256 of a file, read in 8 MiB chunks."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for chunk in iter(lambda: handle.read(1 << 23), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _vector_files(path: Path) -> list[Path]:
+    """A vector file and its sidecars (shapefile parts)."""
+    if path.suffix.lower() == ".shp":
+        return sorted(p for p in path.parent.glob(path.stem + ".*") if p.is_file())
+    return [path]
+
+
+# -- main entry ---------------------------------------------------------------------------
+@dataclass
+class _ZoneSet:
+    name: str
+    layer: object            # PolygonLayer
+    wkbs: np.ndarray
+    bounds: np.ndarray
+    nonempty: np.ndarray
+    acc: ZonalAccumulator
+
+
+def _prepare(name, layer, n_classes, n_rocks, grid):
+    geoms = layer.geometry
+    nonempty = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    bounds = np.full((len(geoms), 4), np.nan)
+    if nonempty.any():
+        bounds[nonempty] = shapely.bounds(geoms[nonempty])
+    xmin, ymin, xmax, ymax = grid.bounds
+    inside = nonempty & (bounds[:, 0] < xmax) & (bounds[:, 2] > xmin) & (bounds[:, 1] < ymax) & (bounds[:, 3] > ymin)
+    wkbs = np.empty(len(geoms), dtype=object)
+    wkbs[nonempty] = shapely.to_wkb(geoms[nonempty])
+    return _ZoneSet(name, layer, wkbs, bounds, inside, ZonalAccumulator(len(geoms), n_classes, n_rocks))
+
+
+def zone_partials(outdir, geometries, progress=None) -> ZonalAccumulator:
+    """Partial sums over ``geometries`` (shapely polygons in the raster CRS) of one map
+    output folder, e.g. one tile of a batch: merge the results of several tiles with
+    ``ZonalAccumulator.merge`` and call ``finalize``."""
+    from denude.io.rock_csv import read_rock_table
+
+    outdir = Path(outdir)
+    datasets, grid = _open_outdir(outdir)
+    try:
+        lookup = read_rock_table(outdir / ROCKS_CSV).lookup()
+        n_classes = len(hazard_class_names(datasets[HAZARD_TIF]))
+        layer = _Geoms(np.asarray(geometries, dtype=object))
+        zs = _prepare("zones", layer, n_classes, len(lookup.codes), grid)
+        _run_strips(datasets, grid, cell_areas_km2(grid)[0], [zs], lookup, None, None, progress)
+        return zs.acc
+    finally:
+        for ds in datasets.values():
+            ds.close()
+
+
+@dataclass
+class _Geoms:
+    geometry: np.ndarray
+
+
+def _strip_rows(dataset, width) -> int:
+    block_h = dataset.block_shapes[0][0] if dataset.block_shapes else 256
+    rows = max(1, STRIP_CELLS // max(width, 1))
+    return max(block_h, rows // block_h * block_h)
+
+
+def summarize_outputs(
+    outdir,
+    zones_path,
+    layer: Optional[str] = None,
+    id_field: Optional[str] = None,
+    units_path=None,
+    units_layer: Optional[str] = None,
+    units_id_field: Optional[str] = None,
+    points_path=None,
+    points_layer: Optional[str] = None,
+    out_path="summary.gpkg",
+    overwrite: bool = False,
+    progress: Optional[Callable[[int, int], None]] = None,
+) -> dict:
+    """Summarise a ``denude map`` output folder over zones, optional planning units and
+    sinkhole points, and write ``out_path`` (GeoPackage), CSV twins and a
+    ``<stem>.summary.json`` sidecar (provenance, method, units). ``progress(done, total)``
+    is called with rows of the grid done. Returns the sidecar content as a dict."""
+    from denude.io.rock_csv import read_rock_table
+    from denude.io.vectors import check_output_path, read_points, read_polygons, write_layers
+
+    outdir = Path(outdir)
+    out_path = check_output_path(out_path, [zones_path, units_path, points_path])
+    csv_paths = {ZONES_LAYER: out_path.with_suffix(".csv")}
+    if units_path is not None:
+        csv_paths[UNITS_LAYER] = out_path.with_name(out_path.stem + "_planning_units.csv")
+    if points_path is not None:
+        csv_paths[POINTS_LAYER] = out_path.with_name(out_path.stem + "_sinkholes.csv")
+    sidecar = out_path.with_name(out_path.stem + ".summary.json")
+    finals = [out_path, *csv_paths.values(), sidecar]
+    if not overwrite:
+        for item in finals:
+            if item.exists():
+                raise OutputError(f"{item}: already exists; remove it, choose another output or pass --overwrite")
+
+    datasets, grid = _open_outdir(outdir)
+    hasher = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+    try:
+        input_files = [outdir / n for n in REQUIRED_FILES]
+        for p in (zones_path, units_path, points_path):
+            if p is not None and Path(p).exists():
+                input_files += _vector_files(Path(p))
+        hashes = {str(p): hasher.submit(file_sha256, p) for p in input_files}
+
+        rocks = read_rock_table(outdir / ROCKS_CSV)
+        lookup = rocks.lookup()
+        rock_names = [rocks.by_code(int(c)).name for c in lookup.codes]
+        class_names = hazard_class_names(datasets[HAZARD_TIF])
+        areas_row, area_method = cell_areas_km2(grid)
+
+        from pyproj import CRS
+
+        target_crs = CRS.from_wkt(grid.crs.to_wkt())
+        zones = read_polygons(zones_path, layer, id_field, target_crs, what="zone")
+        sets = [_prepare(ZONES_LAYER, zones, len(class_names), len(rock_names), grid)]
+        if not sets[0].nonempty.any():
+            raise ZoneError(
+                f"{zones_path}: no zone overlaps the raster extent {tuple(round(v, 6) for v in grid.bounds)}; "
+                "check the zone file and the map output folder cover the same area"
+            )
+        if units_path is not None:
+            units = read_polygons(units_path, units_layer, units_id_field, target_crs, what="planning unit")
+            sets.append(_prepare(UNITS_LAYER, units, len(class_names), len(rock_names), grid))
+        points = read_points(points_path, points_layer, target_crs) if points_path is not None else None
+
+        point_rc = None
+        if points is not None:
+            n_pts = len(points)
+            point_values = {
+                "rate": np.full(n_pts, np.nan), "hazard": np.full(n_pts, HAZARD_NODATA, np.int64),
+                "rock": np.full(n_pts, -1, np.int64),
+            }
+            xy = np.full((n_pts, 2), np.nan)
+            present = ~(shapely.is_missing(points.geometry) | shapely.is_empty(points.geometry))
+            xy[present, 0] = shapely.get_x(points.geometry[present])
+            xy[present, 1] = shapely.get_y(points.geometry[present])
+            t = grid.transform
+            col = np.floor((xy[:, 0] - t.c) / t.a)
+            row = np.floor((xy[:, 1] - t.f) / t.e)
+            ok = np.isfinite(col) & np.isfinite(row) & (col >= 0) & (col < grid.width) & (row >= 0) & (row < grid.height)
+            point_rc = (np.where(ok, row, -1).astype(np.int64), np.where(ok, col, -1).astype(np.int64))
+
+        _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values if points is not None else None, progress)
+
+        tables = {}
+        for zs in sets:
+            if points is not None:
+                tree = shapely.STRtree(zs.layer.geometry)
+                pidx, zidx = tree.query(points.geometry, predicate="intersects")
+                zs.acc.add_points(zidx, point_values["rate"][pidx])
+            cols = zs.acc.finalize(class_names, rock_names, with_points=points is not None)
+            if zs.name == ZONES_LAYER:  # shares are asked for planning units only
+                cols = {k: v for k, v in cols.items() if not k.startswith("hazard_share_")}
+            tables[zs.name] = _table(zs.layer, cols, class_names, area_method)
+        if points is not None:
+            tables[POINTS_LAYER] = _point_table(points, point_values, class_names, rock_names)
+
+        layer_names = {ZONES_LAYER: zones.layer if zones.layer not in (UNITS_LAYER, POINTS_LAYER) else ZONES_LAYER}
+        meta = {
+            "tool": "denude summarize",
+            "denude_version": __version__,
+            "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+            "map_folder": str(outdir.resolve()),
+            "outputs": {
+                "geopackage": str(out_path),
+                "layers": {layer_names.get(k, k): len(v) for k, v in tables.items()},
+                "csv": {layer_names.get(k, k): str(p) for k, p in csv_paths.items()},
+            },
+            "method": {
+                "weighting": "coverage fraction of each cell inside the zone (exactextract) x cell area",
+                "cell_area": area_method,
+                "cell_counts": "whole cells with coverage > 0 (valid_cells: rate present; nodata_cells: rate NaN)",
+                "area_km2": "area of the zone on the raster grid (parts outside the grid not counted)",
+                "percentiles": (
+                    "area-weighted, from a histogram with a zero bin, a (0, 0.01) mm/kyr bin, 4000 "
+                    "log-spaced bins 0.01-10000 mm/kyr and an overflow bin, interpolated within the "
+                    f"bin clipped to the exact min/max; resolution {PERCENTILE_RELATIVE_RESOLUTION:.4%} of the value"
+                ),
+                "rock_volume": "sum of rate [mm/kyr] x covered area [km2]; 1 mm/kyr over 1 km2 = 1 m3/yr",
+                "rock_mass": "rock volume x bulk density of the cell's rock type (rocks.csv, g/cm3 = t/m3)",
+                "sinkholes": "rate, hazard class and rock of the cell holding each point; a point counts in every zone it intersects",
+                "hazard_classes": class_names,
+            },
+            "zones": {
+                "file": str(zones_path), "layer": zones.layer, "id_field": zones.id_field, "count": len(zones),
+                "repaired_geometries": zones.repaired, "reprojected_from": zones.reprojected_from,
+            },
+            "raster_crs": grid.crs.to_string(),
+            "units": COLUMN_UNITS,
+        }
+        if units_path is not None:
+            u = sets[1].layer
+            meta["planning_units"] = {
+                "file": str(units_path), "layer": u.layer, "id_field": u.id_field, "count": len(u),
+                "repaired_geometries": u.repaired, "reprojected_from": u.reprojected_from,
+            }
+        if points is not None:
+            meta["sinkholes"] = {"file": str(points_path), "layer": points.layer, "count": len(points),
+                                 "outside_raster": int((point_rc[0] < 0).sum()),
+                                 "reprojected_from": points.reprojected_from}
+        meta["inputs"] = {p: {"sha256": f.result()} for p, f in hashes.items()}
+        _write_all(out_path, tables, layer_names, csv_paths, sidecar, meta)
+        return meta
+    finally:
+        hasher.shutdown(wait=True, cancel_futures=True)
+        for ds in datasets.values():
+            ds.close()
+
+
+def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress):
+    """The single pass over the rasters, strip by strip, feeding every zone set's accumulator."""
+    from rasterio.windows import Window
+
+    ref = datasets[RATE_TIF]
+    rows_per = _strip_rows(ref, grid.width)
+    t = grid.transform
+    xmin, _, xmax, _ = grid.bounds
+    planar = bool(np.all(areas_row == areas_row[0]))
+    density_by_row = lookup.density_g_cm3
+    done = 0
+    if progress:
+        progress(0, grid.height)
+    for r0 in range(0, grid.height, rows_per):
+        r1 = min(grid.height, r0 + rows_per)
+        ny = r1 - r0
+        ytop, ybot = t.f + r0 * t.e, t.f + r1 * t.e
+        picks = []
+        for zs in sets:
+            b = zs.bounds
+            sel = np.flatnonzero(zs.nonempty & (b[:, 1] < ytop) & (b[:, 3] > ybot))
+            if sel.size:
+                picks.append((zs, sel))
+        pts = None
+        if point_rc is not None:
+            pts = np.flatnonzero((point_rc[0] >= r0) & (point_rc[0] < r1))
+        if picks or (pts is not None and pts.size):
+            window = Window(0, r0, grid.width, ny)
+            rate = ref.read(1, window=window).ravel()
+            hazard = datasets[HAZARD_TIF].read(1, window=window).ravel()
+            litho = datasets[LITHOLOGY_TIF].read(1, window=window).ravel()
+            rock_row = lookup.row_index(litho)
+            if pts is not None and pts.size:
+                flat = (point_rc[0][pts] - r0) * grid.width + point_rc[1][pts]
+                point_values["rate"][pts] = rate[flat]
+                point_values["hazard"][pts] = hazard[flat]
+                point_values["rock"][pts] = rock_row[flat]
+        if picks:
+            co2 = datasets[CO2_TIF].read(1, window=window).ravel()
+            soluble = datasets[SOLUBLE_TIF].read(1, window=window).ravel()
+            extent = (xmin, ybot, xmax, ytop)
+            for zs, sel in picks:
+                zone, cell, cov = coverage_pairs(extent, grid.width, ny, zs.wkbs[sel], sel)
+                if zone.size == 0:
+                    continue
+                weight = cov * (areas_row[r0] if planar else areas_row[r0 + cell // grid.width])
+                rr = rock_row[cell]
+                density = np.where(rr >= 0, density_by_row[np.maximum(rr, 0)], np.nan)
+                zs.acc.add(zone, weight, rate[cell], soluble_fraction=soluble[cell],
+                           co2_t_per_km2_yr=co2[cell], density_g_cm3=density,
+                           hazard_class=hazard[cell], rock_index=rr)
+        done = r1
+        if progress:
+            progress(done, grid.height)
+
+
+def _table(layer, cols, class_names, area_method):
+    """GeoDataFrame of the zone layer: id, summary columns, method, geometry (file's CRS)."""
+    import geopandas
+
+    data = {layer.id_field: layer.frame[layer.id_field].to_numpy()}
+    data.update(cols)
+    data["cell_area_method"] = np.full(len(layer), "geodesic" if area_method.startswith("geodesic") else "planar", dtype=object)
+    return geopandas.GeoDataFrame(data, geometry=list(layer.frame.geometry.values), crs=layer.frame.crs)
+
+
+def _point_table(points, values, class_names, rock_names):
+    import geopandas
+
+    frame = points.frame
+    keep = [c for c in frame.columns if c != frame.geometry.name and c not in
+            ("denudation_mm_per_kyr", "hazard_class", "hazard_name", "rock")]
+    data = {c: frame[c].to_numpy() for c in keep}
+    hz = values["hazard"]
+    data["denudation_mm_per_kyr"] = values["rate"]
+    data["hazard_class"] = hz.astype(np.int64)
+    data["hazard_name"] = np.array([class_names[h] if 0 <= h < len(class_names) else "" for h in hz], dtype=object)
+    data["rock"] = np.array([rock_names[r] if r >= 0 else "" for r in values["rock"]], dtype=object)
+    return geopandas.GeoDataFrame(data, geometry=list(frame.geometry.values), crs=frame.crs)
+
+
+def _write_all(out_path, tables, layer_names, csv_paths, sidecar, meta):
+    """Write every output under a temporary name, then rename them all; on failure remove them."""
+    from denude.io.vectors import write_layers
+
+    tag = f".partial-{os.getpid()}"
+    tmp_gpkg = out_path.with_name("." + out_path.stem + tag + ".gpkg")
+    written = []
+    try:
+        written.append(tmp_gpkg)
+        write_layers(tmp_gpkg, {layer_names.get(k, k): v for k, v in tables.items()})
+        moves = [(tmp_gpkg, out_path)]
+        for key, path in csv_paths.items():
+            tmp = path.with_name("." + path.name + tag)
+            written.append(tmp)
+            try:
+                tables[key].drop(columns=tables[key].geometry.name).to_csv(tmp, index=False)
+            except OSError as exc:
+                raise OutputError(f"{path}: cannot write ({exc.strerror or exc}); choose a writable folder") from None
+            moves.append((tmp, path))
+        tmp = sidecar.with_name("." + sidecar.name + tag)
+        written.append(tmp)
+        tmp.write_text(json.dumps(meta, indent=2, default=str) + "\n", encoding="utf-8")
+        moves.append((tmp, sidecar))
+        for src, dst in moves:
+            os.replace(src, dst)
+    except BaseException:
+        for item in written:
+            try:
+                item.unlink()
+            except FileNotFoundError:
+                pass
+        raise
