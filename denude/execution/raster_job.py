@@ -1,0 +1,610 @@
+"""The raster job behind `denude map` and `denude check`.
+
+``inspect_job(settings)`` validates everything and writes nothing; ``run_map(settings)``
+validates, then reads, computes and writes one window at a time (windows = output tiles)
+on a thread pool, and renames the finished output folder into place.
+``compute_window(settings, grid, window)`` is the per-window step: it takes only picklable
+arguments, so batch runners can call it from other processes or Dask workers.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import math
+import os
+import shutil
+import threading
+import time
+import uuid
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import rasterio
+from rasterio.windows import Window
+
+import denude
+from denude.core.constants import MINERAL_INDEX
+from denude.core.dissolution import warn_out_of_range
+from denude.core.hazard import DEFAULT_COLOURS, HAZARD_NODATA, classify
+from denude.core.kernel import BlockCounts, compute_block
+from denude.core.rates import runoff_from_water_balance_mm_per_yr
+from denude.core.rocks import RockTable
+from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
+from denude.errors import GridError, InputError, OutputError
+from denude.execution.blocks import block_windows
+from denude.io.grid import Grid, parse_crs
+from denude.io.jobfile import LAYERS, MapSettings, is_constant
+from denude.io.rasters import (
+    INT32_NODATA,
+    OutputSpec,
+    RasterInfo,
+    RasterWriter,
+    WarpPlan,
+    choose_layout,
+    file_sha256,
+    inspect_raster,
+    open_raster,
+    overlap_fraction,
+    plan_warp,
+    read_on_grid,
+    unique_codes,
+    value_range,
+)
+from denude.io.rock_csv import read_rock_table, write_rock_table
+
+CAUTION_TAG = "screening estimate, not a site investigation"
+SOURCES = (
+    "White (1984) maximum denudation; Plummer & Busenberg (1982) equilibrium constants; "
+    "Brook, Folkoff & Box (1983) soil CO2 when derived from AET"
+)
+
+#: Raster inputs: role -> (categorical, unit).
+INPUT_ROLES = {
+    "lithology": (True, "code"),
+    "runoff": (False, "mm/yr"),
+    "precipitation": (False, "mm/yr"),
+    "aet": (False, "mm/yr"),
+    "pco2": (False, "see pco2_units"),
+    "elevation": (False, "m"),
+    "temperature": (False, "degrees C"),
+    "soluble_fraction": (False, "fraction 0-1"),
+}
+
+#: Plausible value bands per input: role -> (low, high, fix when outside). Values outside
+#: usually mean wrong units; these are screening limits (common practice, no source).
+PLAUSIBLE = {
+    "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month); set negative cells to nodata"),
+    "precipitation": (0.0, 20000.0, "give precipitation in mm/yr"),
+    "aet": (0.0, 5000.0, "give actual evapotranspiration in mm/yr"),
+    "temperature": (-70.0, 60.0, "give temperature in degrees C (not kelvin or tenths of a degree)"),
+    "elevation": (-500.0, 9000.0, "give elevation in metres above sea level"),
+    "soluble_fraction": (0.0, 1.0, "give the soluble-area fraction as 0-1 (not percent)"),
+    "pco2:atm": (0.0, 1.0, "values above 1 atm look like ppmv: use --pco2-units ppmv"),
+    "pco2:ppmv": (1.0, 1e6, "values below 1 ppmv look like atm: use --pco2-units atm"),
+    "pco2:log10atm": (-6.0, 0.0, "give log10 of PCO2 in atm (e.g. -2), or use --pco2-units atm"),
+}
+
+
+# ----------------------------------------------------------------------- layer descriptions
+@dataclass(frozen=True)
+class LayerInfo:
+    file: str
+    dtype: str
+    nodata: float
+    overview_resampling: str
+    units: str
+    quantity: str
+    formula: str
+
+
+LAYER_INFO = {
+    "denudation": LayerInfo(
+        LAYERS["denudation"], "float32", float("nan"), "average", "mm/kyr",
+        "cell-mean maximum chemical denudation rate",
+        "D = M [Ca]eq q / (rho purity) x soluble-area fraction"),
+    "dissolved_load": LayerInfo(
+        LAYERS["dissolved_load"], "float32", float("nan"), "average", "mmol/L",
+        "equilibrium dissolved mineral load (not scaled by area fraction)",
+        "[Ca]eq = (K1 Kc KH PCO2 / (4 K2 gCa gHCO3^2))^(1/3) (calcite; analogues for dolomite, gypsum)"),
+    "co2_drawdown": LayerInfo(
+        LAYERS["co2_drawdown"], "float32", float("nan"), "average", "t CO2 km-2 yr-1",
+        "CO2 drawn down by dissolution per km2 of cell",
+        "n [Ca]eq q 44.01 x soluble-area fraction"),
+    "hazard": LayerInfo(
+        LAYERS["hazard"], "uint8", float(HAZARD_NODATA), "nearest", "class index",
+        "dissolution hazard class from the denudation rate", "class k where breaks[k-1] <= D < breaks[k]"),
+    "lithology": LayerInfo(
+        LAYERS["lithology"], "int32", float(INT32_NODATA), "nearest", "code",
+        "lithology code on the target grid", "input lithology, nearest/mode resampled"),
+    "soluble_fraction": LayerInfo(
+        LAYERS["soluble_fraction"], "float32", float("nan"), "average", "fraction 0-1",
+        "soluble-rock area fraction of each cell", "0 on insoluble rock, else the soluble-area fraction input"),
+}
+
+
+def output_spec(layer: str, settings: MapSettings) -> OutputSpec:
+    """The OutputSpec (file, dtype, nodata, tags, colours) of one output layer."""
+    info = LAYER_INFO[layer]
+    tags = {
+        "units": info.units,
+        "quantity": info.quantity,
+        "formula": info.formula,
+        "sources": SOURCES,
+        "chemistry": settings.chemistry,
+        "caution": CAUTION_TAG,
+        "denude_version": denude.__version__,
+    }
+    colormap = None
+    if layer == "hazard":
+        names = list(settings.hazard_names)
+        tags["class_names"] = json.dumps(names)
+        tags["class_breaks_mm_per_kyr"] = json.dumps(list(settings.hazard_breaks_mm_per_kyr))
+        for i, name in enumerate(names):
+            tags[f"class_{i}"] = name
+        colormap = tuple(DEFAULT_COLOURS[i] if i < len(DEFAULT_COLOURS) else (128, 128, 128, 255)
+                         for i in range(len(names)))
+    return OutputSpec(
+        name=info.file, dtype=info.dtype, nodata=info.nodata,
+        overview_resampling=info.overview_resampling, tags=tuple(tags.items()),
+        description=f"{info.quantity} [{info.units}]", colormap=colormap,
+    )
+
+
+# --------------------------------------------------------------------------- planning
+def load_rocks(settings: MapSettings) -> RockTable:
+    """The rock table of a job: the CSV given with --rocks, else the built-in table."""
+    return RockTable.builtin() if settings.rocks is None else read_rock_table(settings.rocks)
+
+
+def resolve_grid(settings: MapSettings) -> Grid:
+    """The target grid: --grid-like raster, CRS + resolution + bounds, or the lithology grid."""
+    if settings.grid_crs is not None:
+        return Grid.from_bounds(parse_crs(settings.grid_crs, "--grid-crs"), settings.grid_resolution, settings.grid_bounds)
+    path = settings.grid_like or settings.lithology
+    role = "grid" if settings.grid_like else "lithology"
+    with open_raster(path, role) as ds:
+        if ds.crs is None:
+            raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
+        return Grid.from_dataset(ds)
+
+
+def raster_roles(settings: MapSettings) -> dict[str, str]:
+    """Role -> path of every raster input the job reads."""
+    roles = {"lithology": settings.lithology}
+    for role in ("runoff", "precipitation", "aet", "temperature", "soluble_fraction", "elevation"):
+        value = getattr(settings, role)
+        if isinstance(value, str):
+            roles[role] = value
+    if isinstance(settings.pco2, str) and not settings.pco2_from_aet:
+        roles["pco2"] = settings.pco2
+    return roles
+
+
+@dataclass(frozen=True)
+class JobPlan:
+    """Everything a window needs besides the window: picklable, built once per process."""
+
+    settings: MapSettings
+    grid: Grid
+    warps: dict            # role -> WarpPlan
+    rocks: RockTable
+
+
+@functools.lru_cache(maxsize=8)
+def prepare_job(settings: MapSettings, grid: Grid) -> JobPlan:
+    """Warp plans and the rock table for a job (cached per process)."""
+    warps = {}
+    for role, path in raster_roles(settings).items():
+        categorical = INPUT_ROLES[role][0]
+        requested = settings.lithology_resampling if categorical else settings.continuous_resampling
+        warps[role] = plan_warp(inspect_raster(path, role), grid, categorical, requested)
+    return JobPlan(settings, grid, warps, load_rocks(settings))
+
+
+class InputReaders:
+    """Open datasets of one thread or process (GDAL handles are not shared across threads)."""
+
+    def __init__(self, plan: JobPlan):
+        self.plan = plan
+        self._open: dict = {}
+
+    def read(self, role: str, window: Window) -> np.ndarray:
+        warp = self.plan.warps[role]
+        ds = self._open.get(role)
+        if ds is None:
+            ds = self._open[role] = open_raster(warp.info.path, role)
+        return read_on_grid(ds, warp, self.plan.grid, window)
+
+    def close(self) -> None:
+        for ds in self._open.values():
+            ds.close()
+        self._open.clear()
+
+
+@dataclass
+class WindowResult:
+    """Output arrays of one window (layer name -> array) and its cell counts."""
+
+    window: Window
+    arrays: dict
+    counts: BlockCounts
+
+
+def _value(readers: InputReaders, settings: MapSettings, role: str, window: Window):
+    value = settings.pco2 if role == "pco2" else getattr(settings, role)
+    if value is None:
+        return None
+    if is_constant(value):
+        return float(value)
+    return readers.read(role, window).astype(np.float64)
+
+
+def _pco2_atm(readers, settings: MapSettings, window: Window, aet):
+    if settings.pco2_from_aet:
+        return pco2_from_aet_atm(aet)
+    raw = _value(readers, settings, "pco2", window)
+    if settings.pco2_units == "atm":
+        return raw
+    if settings.pco2_units == "log10atm":
+        return log10_atm_to_atm(raw)
+    if settings.elevation is not None:
+        pressure = air_pressure_atm(_value(readers, settings, "elevation", window))
+    else:
+        pressure = 1.0 if settings.air_pressure_atm is None else settings.air_pressure_atm
+    return ppmv_to_atm(raw, pressure)
+
+
+def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: InputReaders | None = None,
+                   layers=None) -> WindowResult:
+    """Read every input for one window of the target grid, run ``compute_block`` and return the
+    output arrays (all six layers unless ``layers`` names a subset) and counts.
+
+    Takes only picklable arguments; ``readers`` (open datasets) is an optional per-thread cache.
+    """
+    plan = prepare_job(settings, grid)
+    own = readers is None
+    readers = readers or InputReaders(plan)
+    try:
+        codes = readers.read("lithology", window)
+        valid = codes != INT32_NODATA
+        aet = _value(readers, settings, "aet", window)
+        if settings.runoff is not None:
+            runoff = _value(readers, settings, "runoff", window)
+        else:
+            runoff = runoff_from_water_balance_mm_per_yr(_value(readers, settings, "precipitation", window), aet)
+        pco2 = _pco2_atm(readers, settings, window, aet)
+        temperature = _value(readers, settings, "temperature", window)
+        fraction = _value(readers, settings, "soluble_fraction", window)
+    finally:
+        if own:
+            readers.close()
+    lookup = plan.rocks.lookup()
+    result = compute_block(codes, runoff, pco2, temperature, lookup, settings.chemistry,
+                           soluble_fraction=fraction, lithology_valid=valid, warn=False)
+    wanted = set(layers or settings.layers)
+    arrays = {}
+    if "denudation" in wanted:
+        arrays["denudation"] = result.denudation_mm_per_kyr
+    if "dissolved_load" in wanted:
+        arrays["dissolved_load"] = result.dissolved_load_mmol_per_l
+    if "co2_drawdown" in wanted:
+        arrays["co2_drawdown"] = result.co2_drawdown_t_per_km2_yr
+    if "hazard" in wanted:
+        arrays["hazard"] = classify(result.denudation_mm_per_kyr, settings.hazard_breaks_mm_per_kyr)
+    if "lithology" in wanted:
+        arrays["lithology"] = codes
+    if "soluble_fraction" in wanted:
+        row = lookup.row_index(codes)
+        known = valid & (row >= 0)
+        mineral = np.where(known, lookup.mineral_index[np.maximum(row, 0)], 0)
+        f = np.broadcast_to(np.asarray(1.0 if fraction is None else fraction, dtype=np.float64), codes.shape)
+        out = np.where(known, f, np.nan)
+        out = np.where(known & (mineral == MINERAL_INDEX["insoluble"]) & np.isfinite(f), 0.0, out)
+        arrays["soluble_fraction"] = out.astype(np.float32)
+    return WindowResult(window, arrays, result.counts)
+
+
+# ------------------------------------------------------------------------- validation
+@dataclass
+class InputReport:
+    """One input as `denude check` shows it."""
+
+    role: str
+    constant: float | None = None
+    info: RasterInfo | None = None
+    warp: WarpPlan | None = None
+    overlap: float | None = None      # fraction of the target grid covered
+    value_min: float | None = None
+    value_max: float | None = None
+
+
+@dataclass
+class JobReport:
+    """The result of validating a job: grid, inputs, codes; nothing written."""
+
+    settings: MapSettings
+    grid: Grid
+    rocks: RockTable
+    inputs: dict = field(default_factory=dict)     # role -> InputReport
+    codes_found: list = field(default_factory=list)
+    codes_missing: list = field(default_factory=list)
+    layout: str = "cog"
+    notes: list = field(default_factory=list)
+
+
+def _plausibility_key(role: str, settings: MapSettings) -> str:
+    return f"pco2:{settings.pco2_units}" if role == "pco2" else role
+
+
+def _check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings) -> None:
+    key = _plausibility_key(role, settings)
+    if key not in PLAUSIBLE:
+        return
+    low, high, fix = PLAUSIBLE[key]
+    if role == "temperature" and high_value > 200:
+        fix = "values look like kelvin; convert to degrees C (subtract 273.15)"
+    if role == "soluble_fraction" and 1 < high_value <= 100:
+        fix = "values look like percent; divide by 100"
+    if role == "pco2" and settings.pco2_units == "atm" and high_value <= 0 and low_value >= -6:
+        fix = "values look like log10 atm: use --pco2-units log10atm"
+    if low_value < low or high_value > high:
+        bad = low_value if low_value < low else high_value
+        unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
+        raise InputError(
+            f"{where}: {role} value {bad:g} is outside the plausible range {low:g} to {high:g} {unit}; {fix}"
+        )
+
+
+def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
+    """Refuse an existing output folder (without overwrite) and inputs inside the output folder."""
+    if settings.out is None:
+        raise OutputError("no output folder given; give --out OUTDIR")
+    out = Path(settings.out).resolve()
+    if out.exists() and not out.is_dir():
+        raise OutputError(f"output {out} exists and is a file; give a folder path for --out")
+    if out.exists() and not settings.overwrite:
+        raise OutputError(f"output folder {out} already exists; use --overwrite or give a new --out")
+    if not out.parent.is_dir():
+        raise OutputError(f"parent folder of the output {out.parent} does not exist; create it first")
+    paths = dict(roles)
+    if settings.rocks:
+        paths["rocks"] = settings.rocks
+    if settings.job_file:
+        paths["job file"] = settings.job_file
+    if settings.grid_like:
+        paths["grid"] = settings.grid_like
+    for role, path in paths.items():
+        p = Path(path).resolve()
+        if p == out or out in p.parents:
+            raise OutputError(
+                f"{role} input {p} is inside (or equal to) the output folder {out}; outputs would "
+                "replace it: give another --out"
+            )
+
+
+def inspect_job(settings: MapSettings, for_output: bool = True) -> JobReport:
+    """Validate a job without writing anything: inputs exist and are rasters with a CRS, overlap
+    the target grid, plausible values, every lithology code in the rock table, output path safe.
+    Raises a one-line DenudeError on the first problem; returns the report for `denude check`."""
+    rocks = load_rocks(settings)
+    roles = raster_roles(settings)
+    if for_output:
+        check_outputs(settings, roles)
+    grid = resolve_grid(settings)
+    report = JobReport(settings, grid, rocks, layout=choose_layout(settings.layout, grid))
+    # constants first: cheap
+    for role in ("runoff", "precipitation", "aet", "pco2", "temperature", "soluble_fraction", "elevation"):
+        value = settings.pco2 if role == "pco2" else getattr(settings, role)
+        if is_constant(value):
+            _check_range(role, f"--{role.replace('_', '-')} {value:g}", value, value, settings)
+            report.inputs[role] = InputReport(role, constant=value)
+    if settings.air_pressure_atm is not None:
+        report.notes.append(f"air pressure {settings.air_pressure_atm:g} atm for ppmv -> atm")
+    elif settings.pco2_units == "ppmv" and settings.elevation is None:
+        report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
+    if settings.pco2_from_aet:
+        report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
+    for role, path in roles.items():
+        categorical = INPUT_ROLES[role][0]
+        info = inspect_raster(path, role)
+        requested = settings.lithology_resampling if categorical else settings.continuous_resampling
+        warp = plan_warp(info, grid, categorical, requested)
+        item = InputReport(role, info=info, warp=warp)
+        item.overlap = overlap_fraction(info, grid)
+        if not categorical:
+            lo, hi, n = value_range(path, role)
+            if n == 0:
+                raise InputError(f"{role} raster {path} has no valid cells (all nodata); check its nodata value")
+            item.value_min, item.value_max = lo, hi
+            _check_range(role, f"{role} raster {path}", lo, hi, settings)
+        report.inputs[role] = item
+    codes = unique_codes(settings.lithology)
+    report.codes_found = codes
+    report.codes_missing = rocks.missing_codes(codes)
+    if not codes:
+        raise InputError(f"lithology raster {settings.lithology} has no valid cells (all nodata); check its nodata value")
+    if report.codes_missing:
+        shown = ", ".join(str(c) for c in report.codes_missing[:10])
+        raise InputError(
+            f"lithology raster {settings.lithology} has code(s) {shown} not in the rock table "
+            f"({rocks.source}); add rows for them to the --rocks CSV or set them to nodata"
+        )
+    return report
+
+
+# ---------------------------------------------------------------------------- the run
+@dataclass
+class MapRunSummary:
+    """What a finished `denude map` run produced."""
+
+    out_dir: str
+    grid: Grid
+    counts: BlockCounts
+    outputs: list
+    wall_time_s: float
+    blocks: int
+    layout: str
+    record: dict
+
+
+def _staging_dir(out: Path) -> Path:
+    staging = out.parent / f".{out.name}.denude-partial-{uuid.uuid4().hex[:8]}"
+    try:
+        staging.mkdir()
+    except OSError as exc:
+        raise OutputError(f"cannot create a folder next to {out} ({exc.strerror}); check the parent folder is writable") from None
+    return staging
+
+
+def _commit(staging: Path, out: Path, overwrite: bool) -> None:
+    """Rename the finished staging folder to the output folder (replacing it if allowed)."""
+    old = None
+    if out.exists():
+        if not overwrite:
+            raise OutputError(f"output folder {out} already exists; use --overwrite or give a new --out")
+        old = out.parent / f".{out.name}.denude-old-{uuid.uuid4().hex[:8]}"
+        out.rename(old)
+    staging.rename(out)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def _json_number(value):
+    """A float for JSON: NaN and infinities become strings."""
+    if value is None or (isinstance(value, float) and math.isfinite(value)):
+        return value
+    return str(value)
+
+
+def _input_records(settings: MapSettings, report: JobReport, hashes: dict) -> dict:
+    records = {}
+    for role, item in report.inputs.items():
+        if item.constant is not None:
+            records[role] = {"constant": item.constant, "unit": INPUT_ROLES[role][1] if role != "pco2" else settings.pco2_units}
+            continue
+        info = item.info
+        crs = info.grid.crs
+        records[role] = {
+            "path": info.path,
+            "size_bytes": info.size_bytes,
+            "sha256": hashes.get(info.path),
+            "crs_wkt": info.crs_wkt,
+            "epsg": crs.to_epsg(),
+            "width": info.width,
+            "height": info.height,
+            "resolution": list(info.res),
+            "nodata": _json_number(info.nodata),
+            "resampling": "none (aligned)" if item.warp.offset is not None else item.warp.resampling,
+            "unit": INPUT_ROLES[role][1] if role != "pco2" else settings.pco2_units,
+        }
+    if settings.rocks:
+        records["rocks"] = {"path": settings.rocks, "size_bytes": os.path.getsize(settings.rocks),
+                            "sha256": hashes.get(settings.rocks)}
+    else:
+        records["rocks"] = {"builtin": True}
+    if settings.job_file:
+        records["job_file"] = {"path": settings.job_file, "size_bytes": os.path.getsize(settings.job_file),
+                               "sha256": hashes.get(settings.job_file)}
+    return records
+
+
+def run_map(settings: MapSettings, progress: Callable[[int, int], None] | None = None) -> MapRunSummary:
+    """Validate, compute and write every output of a raster job into ``settings.out``.
+
+    Windows are output tiles; ``settings.workers`` threads read and compute windows while the
+    calling thread writes them in a fixed order, so any number of workers gives identical
+    files. ``progress(done, total)`` is called after each window is written.
+    """
+    started = time.perf_counter()
+    report = inspect_job(settings, for_output=True)
+    grid = report.grid
+    out = Path(settings.out).resolve()
+    windows = block_windows(grid.height, grid.width, settings.block_size)
+    layers = [name for name in LAYERS if name in settings.layers]
+
+    hash_paths = sorted({item.info.path for item in report.inputs.values() if item.info is not None}
+                        | {p for p in (settings.rocks, settings.job_file) if p})
+    hashes: dict = {}
+    hasher = threading.Thread(target=lambda: hashes.update({p: file_sha256(p) for p in hash_paths}), daemon=True)
+    hasher.start()
+
+    staging = _staging_dir(out)
+    writers = {}
+    local = threading.local()
+    all_readers: list[InputReaders] = []
+    lock = threading.Lock()
+    plan = prepare_job(settings, grid)
+
+    def work(window: Window) -> WindowResult:
+        readers = getattr(local, "readers", None)
+        if readers is None:
+            readers = local.readers = InputReaders(plan)
+            with lock:
+                all_readers.append(readers)
+        return compute_window(settings, grid, window, readers, layers)
+
+    total = BlockCounts()
+    try:
+        with rasterio.Env(GDAL_CACHEMAX=settings.gdal_cache_mb * 2**20):
+            for name in layers:
+                writers[name] = RasterWriter(staging / LAYER_INFO[name].file, grid, output_spec(name, settings),
+                                             settings.block_size, settings.compress, report.layout)
+            in_flight = 2 * settings.workers
+            with ThreadPoolExecutor(max_workers=settings.workers, thread_name_prefix="denude-window") as pool:
+                pending: deque = deque()
+                queue = iter(windows)
+                for window in queue:
+                    pending.append(pool.submit(work, window))
+                    if len(pending) >= in_flight:
+                        break
+                done = 0
+                while pending:
+                    result = pending.popleft().result()
+                    nxt = next(queue, None)
+                    if nxt is not None:
+                        pending.append(pool.submit(work, nxt))
+                    for name, array in result.arrays.items():
+                        writers[name].write(array, result.window)
+                    total = total + result.counts
+                    done += 1
+                    if progress is not None:
+                        progress(done, len(windows))
+            for reader in all_readers:
+                reader.close()
+            outputs = [writers[name].close().name for name in layers]
+        write_rock_table(report.rocks, staging / "rocks.csv")
+        outputs.append("rocks.csv")
+        hasher.join()
+        wall = time.perf_counter() - started
+        record = {
+            "tool": "denude",
+            "version": denude.__version__,
+            "command": "map",
+            "caution": CAUTION_TAG,
+            "settings": settings.as_dict(),
+            "inputs": _input_records(settings, report, hashes),
+            "grid": grid.as_dict(),
+            "layout": report.layout,
+            "block_size": settings.block_size,
+            "blocks": len(windows),
+            "lithology_codes_found": report.codes_found,
+            "counts": total.as_dict(),
+            "outputs": outputs + ["run.json"],
+            "wall_time_s": round(wall, 3),
+        }
+        (staging / "run.json").write_text(json.dumps(record, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+        _commit(staging, out, settings.overwrite)
+    except BaseException:
+        for reader in all_readers:
+            reader.close()
+        for writer in writers.values():
+            writer.abort()
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    warn_out_of_range(total.out_of_range)
+    return MapRunSummary(str(out), grid, total, outputs + ["run.json"], wall, len(windows), report.layout, record)

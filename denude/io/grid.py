@@ -1,0 +1,155 @@
+"""The target grid: CRS, affine transform and size. A small frozen, picklable value object.
+
+Windows are always in integer pixel space of this grid (row/column offsets and sizes).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from affine import Affine
+from rasterio.crs import CRS
+from rasterio.errors import CRSError
+from rasterio.windows import Window
+
+from denude.errors import GridError
+
+#: Largest grid accepted, cells per side (guards against a resolution given in the wrong unit).
+MAX_GRID_SIDE = 2_000_000
+
+
+def parse_crs(value, where: str = "grid") -> CRS:
+    """A rasterio CRS from 'EPSG:nnnn', a bare EPSG number, WKT or PROJ text."""
+    text = str(value).strip()
+    try:
+        if text.isdigit():
+            return CRS.from_epsg(int(text))
+        return CRS.from_user_input(text)
+    except (CRSError, ValueError):
+        raise GridError(
+            f"{where}: CRS {text!r} is not recognised; give e.g. 'EPSG:3035' or a WKT string"
+        ) from None
+
+
+@dataclass(frozen=True)
+class Grid:
+    """A north-up raster grid. ``crs_wkt`` keeps it picklable; ``transform`` is 6 GDAL-order
+    affine coefficients (a, b, c, d, e, f) in CRS units (metres or degrees)."""
+
+    crs_wkt: str
+    transform: tuple
+    width: int
+    height: int
+
+    def __post_init__(self):
+        if not self.crs_wkt:
+            raise GridError("target grid has no CRS; give the grid a CRS (e.g. --grid-crs EPSG:3035)")
+        if not (0 < self.width <= MAX_GRID_SIDE and 0 < self.height <= MAX_GRID_SIDE):
+            raise GridError(
+                f"target grid size {self.width} x {self.height} cells is outside 1-{MAX_GRID_SIDE} per "
+                "side; check the resolution and its unit (CRS units)"
+            )
+        a, b, _, d, e, _ = tuple(self.transform)[:6]
+        if b != 0 or d != 0 or a <= 0 or e >= 0:
+            raise GridError(
+                f"target grid transform {tuple(self.transform)[:6]} is rotated or not north-up; "
+                "use a north-up grid"
+            )
+        object.__setattr__(self, "transform", tuple(float(v) for v in tuple(self.transform)[:6]))
+
+    # construction -------------------------------------------------------------------
+    @classmethod
+    def from_dataset(cls, dataset) -> "Grid":
+        """The grid of an open rasterio dataset."""
+        if dataset.crs is None:
+            raise GridError(f"{dataset.name}: raster has no CRS; assign one (e.g. with gdal_edit -a_srs)")
+        return cls(dataset.crs.to_wkt(), tuple(dataset.transform)[:6], dataset.width, dataset.height)
+
+    @classmethod
+    def from_bounds(cls, crs, resolution, bounds) -> "Grid":
+        """A grid from a CRS, a resolution (one number or (x, y), CRS units) and bounds
+        (left, bottom, right, top, CRS units). The right and bottom edges are extended to
+        whole cells."""
+        crs = crs if isinstance(crs, CRS) else parse_crs(crs)
+        res = resolution if isinstance(resolution, (list, tuple)) else (resolution, resolution)
+        try:
+            xres, yres = (float(r) for r in res)
+            left, bottom, right, top = (float(v) for v in bounds)
+        except (TypeError, ValueError):
+            raise GridError(
+                f"grid resolution {resolution!r} or bounds {bounds!r} are not numbers; give "
+                "resolution as one or two numbers and bounds as left bottom right top"
+            ) from None
+        if not (xres > 0 and yres > 0 and math.isfinite(xres) and math.isfinite(yres)):
+            raise GridError(f"grid resolution {resolution!r} must be positive (CRS units)")
+        if not (right > left and top > bottom):
+            raise GridError(
+                f"grid bounds {list(bounds)} must be left bottom right top with right > left and top > bottom"
+            )
+        width = max(1, math.ceil((right - left) / xres - 1e-9))
+        height = max(1, math.ceil((top - bottom) / yres - 1e-9))
+        return cls(crs.to_wkt(), (xres, 0.0, left, 0.0, -yres, top), width, height)
+
+    # properties ---------------------------------------------------------------------
+    @property
+    def crs(self) -> CRS:
+        return CRS.from_wkt(self.crs_wkt)
+
+    @property
+    def affine(self) -> Affine:
+        return Affine(*self.transform)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return (self.height, self.width)
+
+    @property
+    def res(self) -> tuple[float, float]:
+        """Cell size (x, y) in CRS units."""
+        return (self.transform[0], -self.transform[4])
+
+    @property
+    def bounds(self) -> tuple[float, float, float, float]:
+        """(left, bottom, right, top) in CRS units."""
+        a, _, c, _, e, f = self.transform
+        return (c, f + e * self.height, c + a * self.width, f)
+
+    def window_transform(self, window: Window) -> Affine:
+        """Affine transform of a window of this grid (integer offsets)."""
+        return self.affine * Affine.translation(int(window.col_off), int(window.row_off))
+
+    def full_window(self) -> Window:
+        return Window(0, 0, self.width, self.height)
+
+    def same_as(self, other: "Grid") -> bool:
+        """Same size, same transform and an equal CRS."""
+        return (
+            self.width == other.width and self.height == other.height
+            and all(math.isclose(a, b, rel_tol=0, abs_tol=1e-9 * max(1.0, abs(a)))
+                    for a, b in zip(self.transform, other.transform))
+            and self.crs == other.crs
+        )
+
+    def as_dict(self) -> dict:
+        """JSON-ready description (for run.json and `denude check`)."""
+        crs = self.crs
+        return {
+            "crs_wkt": self.crs_wkt,
+            "epsg": crs.to_epsg(),
+            "transform": list(self.transform),
+            "width": self.width,
+            "height": self.height,
+            "resolution": list(self.res),
+            "bounds": list(self.bounds),
+        }
+
+    def describe(self) -> str:
+        """One line for the terminal."""
+        crs = self.crs
+        name = f"EPSG:{crs.to_epsg()}" if crs.to_epsg() else crs.to_string()[:40]
+        l, b, r, t = self.bounds
+        return (
+            f"{self.width} x {self.height} cells, {name}, resolution {self.res[0]:g} x {self.res[1]:g}, "
+            f"bounds ({l:g}, {b:g}, {r:g}, {t:g})"
+        )

@@ -1,0 +1,446 @@
+"""Rasters: open and describe inputs, warp one window onto the target grid, write outputs.
+
+Warping rules (see ``choose_resampling``): categorical inputs use nearest, or mode when the
+target cells are coarser than the source cells; bilinear and other interpolating methods are
+refused for them. Continuous inputs use bilinear, or average when coarsening. Source and
+destination nodata are always passed explicitly, and cells outside an input's footprint
+become nodata (NaN, or ``INT32_NODATA`` for codes), never 0.
+
+Block-by-block warping equals whole-raster warping bit for bit: each window is warped into a
+window-sized array with the window's own transform and an exact transformer (tolerance 0),
+so every destination cell is computed from the same source cells whatever the window.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import rasterio
+import rasterio.shutil
+from rasterio.enums import Resampling
+from rasterio.errors import RasterioIOError
+from rasterio.warp import reproject, transform_bounds
+from rasterio.windows import Window
+
+from denude.errors import GridError, InputError, OutputError
+from denude.io.grid import Grid
+
+INT32_NODATA = -2147483648
+
+#: Resampling methods by name; the CLI and job file take these names.
+RESAMPLING = {
+    "nearest": Resampling.nearest,
+    "mode": Resampling.mode,
+    "bilinear": Resampling.bilinear,
+    "cubic": Resampling.cubic,
+    "average": Resampling.average,
+}
+CATEGORICAL_METHODS = ("nearest", "mode")
+CONTINUOUS_METHODS = ("bilinear", "cubic", "average", "nearest")
+
+#: Target cells at least this many times larger than source cells count as coarsening.
+COARSENING_RATIO = 1.5
+
+#: Rasters with at most this many cells are written in cloud-optimised (COG) layout by default:
+#: 2**28 cells = 16384 x 16384 (1 GiB of float32). Larger ones are plain tiled BigTIFFs with
+#: internal overviews, which avoids the second full pass (and temporary disk space) of the COG copy.
+COG_MAX_CELLS = 2**28
+
+COMPRESSIONS = ("deflate", "zstd")
+LAYOUTS = ("auto", "cog", "tiled")
+
+
+# ---------------------------------------------------------------------------------- inputs
+@dataclass(frozen=True)
+class RasterInfo:
+    """What `denude check` and the run record need to know about one input raster."""
+
+    role: str
+    path: str
+    crs_wkt: str
+    transform: tuple
+    width: int
+    height: int
+    dtype: str
+    nodata: float | None
+    size_bytes: int
+
+    @property
+    def grid(self) -> Grid:
+        return Grid(self.crs_wkt, self.transform, self.width, self.height)
+
+    @property
+    def res(self) -> tuple[float, float]:
+        return self.grid.res
+
+    def describe(self) -> str:
+        g = self.grid
+        crs = g.crs
+        name = f"EPSG:{crs.to_epsg()}" if crs.to_epsg() else crs.to_string()[:40]
+        l, b, r, t = g.bounds
+        return (
+            f"{self.role}: {self.path} ({self.width} x {self.height}, {self.dtype}, nodata "
+            f"{self.nodata}, {name}, resolution {g.res[0]:g} x {g.res[1]:g}, "
+            f"extent ({l:g}, {b:g}, {r:g}, {t:g}))"
+        )
+
+
+def open_raster(path, role: str):
+    """Open a raster for reading; a missing or unreadable file is a one-line InputError."""
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{role} raster {path} not found; give the path of an existing GeoTIFF or a number")
+    if path.is_dir():
+        raise InputError(f"{role} raster {path} is a folder; give the path of a raster file")
+    try:
+        return rasterio.open(path)
+    except RasterioIOError:
+        raise InputError(
+            f"{role} raster {path} is not a readable raster; give a GeoTIFF (or other GDAL raster)"
+        ) from None
+
+
+def inspect_raster(path, role: str) -> RasterInfo:
+    """Describe an input raster; no CRS or a rotated grid is a GridError."""
+    with open_raster(path, role) as ds:
+        if ds.crs is None:
+            raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
+        if ds.count < 1:
+            raise InputError(f"{role} raster {path} has no bands; give a single-band raster")
+        a, b, _, d, e, _ = tuple(ds.transform)[:6]
+        if b or d or a <= 0 or e >= 0:
+            raise GridError(f"{role} raster {path} has a rotated or south-up transform; warp it north-up first")
+        return RasterInfo(
+            role=role, path=str(path), crs_wkt=ds.crs.to_wkt(), transform=tuple(ds.transform)[:6],
+            width=ds.width, height=ds.height, dtype=ds.dtypes[0],
+            nodata=None if ds.nodata is None else float(ds.nodata),
+            size_bytes=os.path.getsize(path),
+        )
+
+
+def footprint_on(info: RasterInfo, grid: Grid) -> tuple[float, float, float, float]:
+    """An input's bounds in the target CRS (densified edges)."""
+    src = info.grid
+    if src.crs == grid.crs:
+        return src.bounds
+    try:
+        return transform_bounds(src.crs, grid.crs, *src.bounds, densify_pts=21)
+    except Exception:  # pragma: no cover - projection failures depend on PROJ
+        raise GridError(
+            f"{info.role} raster {info.path}: its extent cannot be projected to the target CRS; "
+            "check both CRSs"
+        ) from None
+
+
+def overlap_fraction(info: RasterInfo, grid: Grid) -> float:
+    """Fraction (0-1) of the target grid's extent covered by the input's footprint."""
+    l, b, r, t = footprint_on(info, grid)
+    gl, gb, gr, gt = grid.bounds
+    w = max(0.0, min(r, gr) - max(l, gl))
+    h = max(0.0, min(t, gt) - max(b, gb))
+    area = (gr - gl) * (gt - gb)
+    return (w * h) / area if area > 0 else 0.0
+
+
+def source_cell_size_on(info: RasterInfo, grid: Grid) -> float:
+    """Approximate source cell size in target CRS units (geometric mean of x and y)."""
+    l, b, r, t = footprint_on(info, grid)
+    sx = (r - l) / info.width
+    sy = (t - b) / info.height
+    return math.sqrt(abs(sx * sy))
+
+
+def is_coarsening(info: RasterInfo, grid: Grid) -> bool:
+    """True when target cells are at least COARSENING_RATIO times the source cells."""
+    tx, ty = grid.res
+    return math.sqrt(tx * ty) >= COARSENING_RATIO * source_cell_size_on(info, grid)
+
+
+def choose_resampling(info: RasterInfo, grid: Grid, categorical: bool, requested: str = "auto") -> str:
+    """The resampling method for one input: 'auto' picks by kind and coarsening."""
+    requested = (requested or "auto").lower()
+    allowed = CATEGORICAL_METHODS if categorical else CONTINUOUS_METHODS
+    if requested == "auto":
+        if categorical:
+            return "mode" if is_coarsening(info, grid) else "nearest"
+        return "average" if is_coarsening(info, grid) else "bilinear"
+    if requested not in allowed:
+        kind = "categorical" if categorical else "continuous"
+        extra = " (interpolating codes would invent classes)" if categorical and requested in RESAMPLING else ""
+        raise InputError(
+            f"{info.role} raster {info.path}: resampling {requested!r} is not allowed for a {kind} "
+            f"input{extra}; use one of auto, {', '.join(allowed)}"
+        )
+    return requested
+
+
+def aligned_offset(info: RasterInfo, grid: Grid) -> tuple[int, int] | None:
+    """(row, col) offset of the target grid inside the source when both share CRS, cell size
+    and cell edges (then reading is a plain window read); else None."""
+    s = info.transform
+    g = grid.transform
+    if not (math.isclose(s[0], g[0], rel_tol=1e-9) and math.isclose(s[4], g[4], rel_tol=1e-9)):
+        return None
+    col = (g[2] - s[2]) / s[0]
+    row = (g[5] - s[5]) / s[4]
+    if abs(col - round(col)) > 1e-6 or abs(row - round(row)) > 1e-6:
+        return None
+    if info.grid.crs != grid.crs:
+        return None
+    return int(round(row)), int(round(col))
+
+
+@dataclass(frozen=True)
+class WarpPlan:
+    """How one input is put on the target grid (picklable)."""
+
+    info: RasterInfo
+    categorical: bool
+    resampling: str
+    offset: tuple[int, int] | None          # set when the input is aligned with the grid
+    footprint: tuple[float, float, float, float]  # in target CRS units
+
+    def describe(self) -> str:
+        how = "read directly (aligned with the target grid)" if self.offset is not None else f"warped with {self.resampling}"
+        kind = "categorical" if self.categorical else "continuous"
+        return f"{self.info.role} ({kind}): {how}"
+
+
+def plan_warp(info: RasterInfo, grid: Grid, categorical: bool, requested: str = "auto") -> WarpPlan:
+    """Decide how to bring one input onto the grid; refuses inputs that miss the grid."""
+    if overlap_fraction(info, grid) <= 0.0:
+        raise GridError(
+            f"{info.role} raster {info.path} does not overlap the target grid {grid.bounds}; check "
+            "its CRS and extent or choose another grid"
+        )
+    method = choose_resampling(info, grid, categorical, requested)
+    offset = aligned_offset(info, grid)
+    return WarpPlan(info, categorical, method, offset, footprint_on(info, grid))
+
+
+def _dest_dtype(plan: WarpPlan):
+    if plan.categorical:
+        return np.int32
+    return np.float64 if plan.info.dtype == "float64" else np.float32
+
+
+def _dest_nodata(plan: WarpPlan):
+    return INT32_NODATA if plan.categorical else np.nan
+
+
+def _mark_nodata(plan: WarpPlan, data: np.ndarray, src_nodata) -> np.ndarray:
+    """Cast a directly read block to the destination dtype with destination nodata."""
+    out = data.astype(_dest_dtype(plan))
+    if src_nodata is not None:
+        if plan.categorical:
+            out[data == src_nodata] = INT32_NODATA
+        elif math.isnan(src_nodata):
+            pass
+        else:
+            out[data == src_nodata] = np.nan
+    return out
+
+
+def read_on_grid(dataset, plan: WarpPlan, grid: Grid, window: Window) -> np.ndarray:
+    """One window of an input on the target grid: int32 codes (INT32_NODATA = none) for
+    categorical inputs, float32/64 values (NaN = none) for continuous ones."""
+    rows, cols = int(window.height), int(window.width)
+    dtype = _dest_dtype(plan)
+    nodata = _dest_nodata(plan)
+    src_nodata = dataset.nodata
+    out = np.full((rows, cols), nodata, dtype=dtype)
+    if plan.offset is not None:
+        r0 = int(window.row_off) + plan.offset[0]
+        c0 = int(window.col_off) + plan.offset[1]
+        rs, re_ = max(r0, 0), min(r0 + rows, dataset.height)
+        cs, ce = max(c0, 0), min(c0 + cols, dataset.width)
+        if rs < re_ and cs < ce:
+            block = dataset.read(1, window=Window(cs, rs, ce - cs, re_ - rs))
+            out[rs - r0:re_ - r0, cs - c0:ce - c0] = _mark_nodata(plan, block, src_nodata)
+        return out
+    # skip windows clearly outside the footprint (their cells would be nodata anyway)
+    transform = grid.window_transform(window)
+    wl, wt = transform.c, transform.f
+    wr, wb = wl + transform.a * cols, wt + transform.e * rows
+    l, b, r, t = plan.footprint
+    margin = 2.0 * max(grid.res[0], grid.res[1], (r - l) / plan.info.width, (t - b) / plan.info.height)
+    if wr < l - margin or wl > r + margin or wt < b - margin or wb > t + margin:
+        return out
+    reproject(
+        source=rasterio.band(dataset, 1),
+        destination=out,
+        src_nodata=src_nodata,
+        dst_transform=transform,
+        dst_crs=grid.crs,
+        dst_nodata=nodata,
+        resampling=RESAMPLING[plan.resampling],
+        init_dest_nodata=True,
+        num_threads=1,
+        tolerance=0.0,
+    )
+    return out
+
+
+def value_range(path, role: str, max_side: int = 1024) -> tuple[float, float, int]:
+    """(min, max, valid cells) of band 1 from a decimated read (at most max_side per side),
+    nodata and NaN excluded; (nan, nan, 0) when nothing is valid."""
+    with open_raster(path, role) as ds:
+        step = max(1, math.ceil(max(ds.width, ds.height) / max_side))
+        shape = (max(1, ds.height // step), max(1, ds.width // step))
+        data = ds.read(1, out_shape=shape, masked=True, resampling=Resampling.nearest)
+        values = np.ma.masked_invalid(data.astype(np.float64)).compressed()
+    if values.size == 0:
+        return (math.nan, math.nan, 0)
+    return (float(values.min()), float(values.max()), int(values.size))
+
+
+def unique_codes(path, role: str = "lithology") -> list[int]:
+    """Every code in band 1, read block by block (nodata excluded). Non-integer values are an error."""
+    found: set[int] = set()
+    with open_raster(path, role) as ds:
+        if not np.issubdtype(np.dtype(ds.dtypes[0]), np.integer):
+            probe = ds.read(1, window=Window(0, 0, min(ds.width, 256), min(ds.height, 256)), masked=True)
+            vals = probe.compressed()
+            if vals.size and np.any(vals != np.round(vals)):
+                raise InputError(
+                    f"{role} raster {path} holds non-integer values (e.g. {float(vals[vals != np.round(vals)][0]):g}); "
+                    "give integer lithology codes"
+                )
+        nodata = ds.nodata
+        for _, window in ds.block_windows(1):
+            block = ds.read(1, window=window)
+            vals = np.unique(block)
+            if nodata is not None:
+                vals = vals[vals != nodata]
+            if vals.dtype.kind == "f":
+                vals = vals[np.isfinite(vals)]
+            found.update(int(v) for v in vals)
+    return sorted(found)
+
+
+def file_sha256(path, chunk_bytes: int = 4 * 2**20) -> str:
+    """Hex SHA-256 of a file, read in chunks."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        while chunk := handle.read(chunk_bytes):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+# --------------------------------------------------------------------------------- outputs
+@dataclass(frozen=True)
+class OutputSpec:
+    """One output raster: file name, dtype, nodata, overview resampling, tags, colour table."""
+
+    name: str
+    dtype: str
+    nodata: float
+    overview_resampling: str        # "average" (continuous) or "nearest" (classes, codes)
+    tags: tuple = ()                # (key, value) pairs written to the dataset metadata
+    description: str = ""
+    colormap: tuple | None = None   # RGBA per class index
+
+
+def overview_factors(height: int, width: int, block_size: int) -> list[int]:
+    """Overview decimation factors 2, 4, ... until the overview fits in one tile."""
+    factors = []
+    f = 2
+    while max(height, width) / (f // 2) > block_size:
+        factors.append(f)
+        f *= 2
+    return factors
+
+
+def choose_layout(layout: str, grid: Grid) -> str:
+    """'cog' or 'tiled'; 'auto' is COG up to COG_MAX_CELLS cells."""
+    if layout not in LAYOUTS:
+        raise InputError(f"layout {layout!r} is not known; use one of {', '.join(LAYOUTS)}")
+    if layout == "auto":
+        return "cog" if grid.width * grid.height <= COG_MAX_CELLS else "tiled"
+    return layout
+
+
+def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+    if compress not in COMPRESSIONS:
+        raise InputError(f"compression {compress!r} is not known; use one of {', '.join(COMPRESSIONS)}")
+    floating = np.dtype(spec.dtype).kind == "f"
+    return {
+        "compress": compress,
+        "predictor": 3 if floating else 2,
+        "tiled": True,
+        "blockxsize": block_size,
+        "blockysize": block_size,
+        "bigtiff": "IF_SAFER",
+    }
+
+
+class RasterWriter:
+    """Writes one output raster window by window, then adds overviews (and the COG layout).
+
+    ``path`` is the final file name; in COG layout the blocks go to ``<path>.partial.tif``
+    first and are copied to ``path`` by the COG driver when closed.
+    """
+
+    def __init__(self, path, grid: Grid, spec: OutputSpec, block_size: int, compress: str = "deflate",
+                 layout: str = "cog"):
+        self.path = Path(path)
+        self.spec = spec
+        self.grid = grid
+        self.block_size = block_size
+        self.compress = compress
+        self.layout = layout
+        self.options = _creation_options(spec, compress, block_size)
+        self.work_path = self.path.with_name(self.path.name + ".partial.tif") if layout == "cog" else self.path
+        try:
+            self.dataset = rasterio.open(
+                self.work_path, "w", driver="GTiff", width=grid.width, height=grid.height, count=1,
+                dtype=spec.dtype, crs=grid.crs, transform=grid.affine, nodata=spec.nodata, **self.options,
+            )
+        except RasterioIOError as exc:
+            raise OutputError(f"{self.work_path}: cannot create the output raster ({exc}); check the folder is writable") from None
+        self._describe(self.dataset)
+
+    def _describe(self, ds) -> None:
+        ds.update_tags(**dict(self.spec.tags))
+        if self.spec.description:
+            ds.set_band_description(1, self.spec.description)
+        if self.spec.colormap is not None:
+            ds.write_colormap(1, {i: tuple(rgba) for i, rgba in enumerate(self.spec.colormap)})
+
+    def write(self, array: np.ndarray, window: Window) -> None:
+        self.dataset.write(array.astype(self.spec.dtype, copy=False), 1, window=window)
+
+    def close(self) -> Path:
+        """Finish the file (overviews, COG copy); returns the final path."""
+        ds = self.dataset
+        resampling = RESAMPLING[self.spec.overview_resampling]
+        if self.layout == "tiled":
+            factors = overview_factors(self.grid.height, self.grid.width, self.block_size)
+            if factors:
+                ds.build_overviews(factors, resampling)
+                ds.update_tags(ns="rio_overview", resampling=self.spec.overview_resampling)
+            ds.close()
+            return self.path
+        ds.close()
+        rasterio.shutil.copy(
+            self.work_path, self.path, driver="COG",
+            COMPRESS=self.compress.upper(),
+            PREDICTOR="FLOATING_POINT" if np.dtype(self.spec.dtype).kind == "f" else "STANDARD",
+            BLOCKSIZE=self.block_size,
+            BIGTIFF="IF_SAFER",
+            RESAMPLING=self.spec.overview_resampling.upper(),
+            OVERVIEWS="AUTO",
+        )
+        self.work_path.unlink()
+        return self.path
+
+    def abort(self) -> None:
+        try:
+            self.dataset.close()
+        except Exception:  # pragma: no cover - best effort on the error path
+            pass
