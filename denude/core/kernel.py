@@ -82,6 +82,7 @@ def compute_block(
     soluble_fraction=None,
     lithology_valid=None,
     warn: bool = True,
+    method: str = "table",
 ) -> BlockResult:
     """Rates for one block of aligned cells.
 
@@ -93,8 +94,15 @@ def compute_block(
     chemistry : "white" or "speciated"
     soluble_fraction : float array [0-1] or None (1 everywhere)
     lithology_valid : bool array or None (all valid)
+    method : "table" (compiled loop over the load lookup table, the default) or "direct"
+        (numpy, solving the chemistry per cell; the reference the table is tested against)
     """
     check_chemistry(chemistry)
+    if method == "table":
+        return _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c,
+                                    rocks, chemistry, soluble_fraction, lithology_valid, warn)
+    if method != "direct":
+        raise ValueError(f"unknown method {method!r}; choose 'table' or 'direct'")
     codes = np.asarray(lithology_codes)
     shape = codes.shape
     q = np.broadcast_to(np.asarray(runoff_mm_per_yr, dtype=np.float64), shape)
@@ -153,3 +161,89 @@ def compute_block(
         co2_drawdown_t_per_km2_yr=co2.astype(np.float32),
         counts=counts,
     )
+
+
+def _flat_float(values, shape):
+    """A contiguous 1-D float view (float32 kept as is, anything else as float64)."""
+    arr = np.asarray(values)
+    if arr.dtype not in (np.float32, np.float64):
+        arr = arr.astype(np.float64)
+    return np.ascontiguousarray(np.broadcast_to(arr, shape)).reshape(-1)
+
+
+def _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, rocks,
+                         chemistry, soluble_fraction, lithology_valid, warn) -> BlockResult:
+    import threading
+
+    from denude.core import fast_kernel as fk
+    from denude.core.constants import PCO2_MAX_ATM, TEMPERATURE_MAX_C, TEMPERATURE_MIN_C
+    from denude.core.lookup import stacked_tables
+
+    codes = np.asarray(lithology_codes)
+    if codes.dtype.kind not in "iub":
+        raise ValueError("lithology codes must be integers")
+    shape = codes.shape
+    flat_codes = np.ascontiguousarray(codes).reshape(-1)
+    q = _flat_float(runoff_mm_per_yr, shape)
+    p = _flat_float(pco2_atm, shape)
+    t = _flat_float(temperature_c, shape)
+    f = _flat_float(1.0 if soluble_fraction is None else soluble_fraction, shape)
+    litho_ok = (np.ones(shape, bool) if lithology_valid is None
+                else np.ascontiguousarray(np.broadcast_to(np.asarray(lithology_valid, bool), shape)))
+    litho_ok = litho_ok.reshape(-1)
+
+    code_min, code_row = _dense_code_rows(rocks)
+    tables, (t0, dt, lp0, dlp) = stacked_tables(chemistry)
+    n = flat_codes.size
+    rate = np.empty(n, np.float32)
+    load = np.empty(n, np.float32)
+    co2 = np.empty(n, np.float32)
+    status = np.empty(n, np.uint8)
+    loop = fk.cell_loop_parallel if threading.current_thread() is threading.main_thread() else fk.cell_loop_serial
+    tally = np.zeros(fk.N_STATUS, np.int64)
+    (tally[fk.NODATA], tally[fk.UNKNOWN_CODE], tally[fk.OUT_OF_RANGE], tally[fk.BELOW_TABLE],
+     tally[fk.COMPUTED_ZERO_RUNOFF]) = loop(flat_codes, litho_ok, q, p, t, f, code_min, code_row, rocks.mineral_index,
+         rocks.density_g_cm3, rocks.purity, _MOLAR_MASS_BY_INDEX, _CO2_BY_INDEX,
+         tables, t0, dt, lp0, dlp, TEMPERATURE_MIN_C, TEMPERATURE_MAX_C, PCO2_MAX_ATM,
+         rate, load, co2, status)
+    tally[fk.COMPUTED] = n - tally.sum()
+    if tally[fk.BELOW_TABLE]:  # PCO2 below 1e-8 atm: solve those few cells directly
+        idx = np.flatnonzero(status == fk.BELOW_TABLE)
+        sub = compute_block(flat_codes[idx], q[idx], p[idx], t[idx], rocks, chemistry,
+                            f[idx], litho_ok[idx], warn=False, method="direct")
+        rate[idx] = sub.denudation_mm_per_kyr
+        load[idx] = sub.dissolved_load_mmol_per_l
+        co2[idx] = sub.co2_drawdown_t_per_km2_yr
+        tally[fk.COMPUTED] += sub.counts.computed - sub.counts.zero_runoff
+        tally[fk.COMPUTED_ZERO_RUNOFF] += sub.counts.zero_runoff
+        tally[fk.OUT_OF_RANGE] += sub.counts.out_of_range
+        tally[fk.BELOW_TABLE] = 0
+    counts = BlockCounts(
+        cells=int(n),
+        computed=int(tally[fk.COMPUTED] + tally[fk.COMPUTED_ZERO_RUNOFF]),
+        nodata=int(tally[fk.NODATA]),
+        unknown_code=int(tally[fk.UNKNOWN_CODE]),
+        out_of_range=int(tally[fk.OUT_OF_RANGE]),
+        zero_runoff=int(tally[fk.COMPUTED_ZERO_RUNOFF]),
+    )
+    if warn:
+        warn_out_of_range(counts.out_of_range)
+    return BlockResult(rate.reshape(shape), load.reshape(shape), co2.reshape(shape), counts)
+
+
+_MOLAR_MASS_BY_INDEX = np.array([MOLAR_MASS_G_PER_MOL[m] for m in MINERALS], dtype=np.float64)
+_CO2_BY_INDEX = np.array([CO2_PER_MOL[m] for m in MINERALS], dtype=np.float64)
+#: Codes spanning more than this use a sparse table (searchsorted) instead of a dense one.
+_DENSE_CODE_SPAN = 1 << 20
+
+
+def _dense_code_rows(rocks: RockLookup) -> tuple[int, np.ndarray]:
+    """(smallest code, row of each code from it) with -1 for codes not in the table."""
+    if len(rocks.codes) == 0:
+        return 0, np.full(1, -1, np.int64)
+    low, high = int(rocks.codes[0]), int(rocks.codes[-1])
+    if high - low >= _DENSE_CODE_SPAN:
+        raise ValueError(f"lithology codes span {low}..{high}; renumber them below {_DENSE_CODE_SPAN}")
+    rows = np.full(high - low + 1, -1, np.int64)
+    rows[rocks.codes - low] = np.arange(len(rocks.codes))
+    return low, rows

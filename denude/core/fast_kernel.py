@@ -1,0 +1,100 @@
+"""Compiled per-cell loop behind ``compute_block(method="table")`` (numba).
+
+One fused pass per cell: validity checks, rock lookup by code, bilinear interpolation of
+the load table (``denude.core.lookup``; load linear in its value, grid in log PCO2), rate, drawdown. Two builds of the same loop: a
+parallel one (numba prange over the cells) for calls from the main thread, and a serial
+one that releases the GIL for callers that run blocks on their own worker threads
+(numba's default threading layer must not be entered from several threads at once).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from denude.core.constants import MOLAR_MASS_CO2_G_PER_MOL
+
+# Status codes per cell, shared with the numpy reference path in kernel.py.
+COMPUTED, NODATA, UNKNOWN_CODE, OUT_OF_RANGE, BELOW_TABLE, COMPUTED_ZERO_RUNOFF = 0, 1, 2, 3, 4, 5
+N_STATUS = 6
+
+
+def _cell_loop(codes, litho_ok, q, p, t, f, code_min, code_row, row_mineral, row_density,
+               row_purity, mineral_molar_mass, mineral_co2, tables, t0, dt, lp0, dlp,
+               t_min, t_max, p_max, rate, load_mmol, co2, status):
+    """Fill rate, load_mmol, co2 and status per cell; return counts of
+    (nodata, unknown code, out of range, below table, computed with runoff <= 0)."""
+    n = codes.shape[0]
+    n_t = tables.shape[1]
+    n_p = tables.shape[2]
+    n_codes = code_row.shape[0]
+    nan = np.float32(np.nan)
+    n_nodata = 0
+    n_unknown = 0
+    n_range = 0
+    n_below = 0
+    n_zero = 0
+    for k in numba.prange(n):
+        rate[k] = nan
+        load_mmol[k] = nan
+        co2[k] = nan
+        qk = q[k]
+        pk = p[k]
+        tk = t[k]
+        fk = f[k]
+        if not litho_ok[k] or math.isnan(qk) or math.isnan(pk) or math.isnan(tk) or math.isnan(fk):
+            status[k] = NODATA
+            n_nodata += 1
+            continue
+        offset = np.int64(codes[k]) - code_min
+        row = -1
+        if 0 <= offset < n_codes:
+            row = code_row[offset]
+        if row < 0:
+            status[k] = UNKNOWN_CODE
+            n_unknown += 1
+            continue
+        if fk < 0.0 or fk > 1.0 or tk < t_min or tk > t_max or pk <= 0.0 or pk > p_max:
+            status[k] = OUT_OF_RANGE
+            n_range += 1
+            continue
+        mineral = row_mineral[row]
+        if mineral == 0:
+            rate[k] = 0.0
+            load_mmol[k] = 0.0
+            co2[k] = 0.0
+            if qk > 0.0:
+                status[k] = COMPUTED
+            else:
+                status[k] = COMPUTED_ZERO_RUNOFF
+                n_zero += 1
+            continue
+        y = (math.log10(pk) - lp0) / dlp
+        if y < 0.0:
+            status[k] = BELOW_TABLE
+            n_below += 1
+            continue
+        x = (tk - t0) / dt
+        i = min(int(x), n_t - 2)
+        j = min(int(y), n_p - 2)
+        fx = x - i
+        fy = y - j
+        v = ((1.0 - fx) * ((1.0 - fy) * tables[mineral, i, j] + fy * tables[mineral, i, j + 1])
+             + fx * ((1.0 - fy) * tables[mineral, i + 1, j] + fy * tables[mineral, i + 1, j + 1]))
+        load = v  # mol/L (the table holds the load itself, interpolated linearly)
+        q_eff = qk if qk > 0.0 else 0.0
+        load_mmol[k] = load * 1e3
+        rate[k] = mineral_molar_mass[mineral] * load * q_eff / (row_density[row] * row_purity[row]) * fk
+        co2[k] = mineral_co2[mineral] * load * q_eff * MOLAR_MASS_CO2_G_PER_MOL * fk
+        if qk > 0.0:
+            status[k] = COMPUTED
+        else:
+            status[k] = COMPUTED_ZERO_RUNOFF
+            n_zero += 1
+    return n_nodata, n_unknown, n_range, n_below, n_zero
+
+
+cell_loop_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_cell_loop)
+cell_loop_serial = numba.njit(parallel=False, cache=True, nogil=True)(_cell_loop)
