@@ -14,15 +14,14 @@ import math
 import numba
 import numpy as np
 
-from denude.core.constants import MOLAR_MASS_CO2_G_PER_MOL
 
 # Status codes per cell, shared with the numpy reference path in kernel.py.
 COMPUTED, NODATA, UNKNOWN_CODE, OUT_OF_RANGE, BELOW_TABLE, COMPUTED_ZERO_RUNOFF = 0, 1, 2, 3, 4, 5
 N_STATUS = 6
 
 
-def _cell_loop(codes, litho_ok, q, p, t, f, code_min, code_row, row_mineral, row_density,
-               row_purity, mineral_molar_mass, mineral_co2, tables, t0, dt, lp0, dlp,
+def _cell_loop(codes, litho_ok, q, p, t, f, code_min, code_row, row_mineral, row_rate_factor,
+               row_co2_factor, tables, t0, dt, lp0, dlp,
                t_min, t_max, p_max, rate, load_mmol, co2, status):
     """Fill rate, load_mmol, co2 and status per cell; return counts of
     (nodata, unknown code, out of range, below table, computed with runoff <= 0)."""
@@ -86,8 +85,8 @@ def _cell_loop(codes, litho_ok, q, p, t, f, code_min, code_row, row_mineral, row
         load = v  # mol/L (the table holds the load itself, interpolated linearly)
         q_eff = qk if qk > 0.0 else 0.0
         load_mmol[k] = load * 1e3
-        rate[k] = mineral_molar_mass[mineral] * load * q_eff / (row_density[row] * row_purity[row]) * fk
-        co2[k] = mineral_co2[mineral] * load * q_eff * MOLAR_MASS_CO2_G_PER_MOL * fk
+        rate[k] = row_rate_factor[row] * load * q_eff * fk
+        co2[k] = row_co2_factor[row] * load * q_eff * fk
         if qk > 0.0:
             status[k] = COMPUTED
         else:

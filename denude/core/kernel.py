@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from denude.core.constants import CO2_PER_MOL, MINERALS, MOLAR_MASS_G_PER_MOL
+from denude.core.constants import CO2_PER_MOL, MINERALS, MOLAR_MASS_CO2_G_PER_MOL, MOLAR_MASS_G_PER_MOL
 from denude.core.dissolution import (
     check_chemistry,
     equilibrium_load_mol_per_l,
@@ -163,12 +163,17 @@ def compute_block(
     )
 
 
-def _flat_float(values, shape):
-    """A contiguous 1-D float view (float32 kept as is, anything else as float64)."""
-    arr = np.asarray(values)
-    if arr.dtype not in (np.float32, np.float64):
-        arr = arr.astype(np.float64)
+def _flat_float(values, shape, dtype):
+    """A contiguous 1-D array of ``dtype`` (no copy when it already is one)."""
+    arr = np.asarray(values, dtype=dtype)
     return np.ascontiguousarray(np.broadcast_to(arr, shape)).reshape(-1)
+
+
+def _fits_int32(codes: np.ndarray) -> bool:
+    if codes.size == 0:
+        return True
+    info = np.iinfo(np.int32)
+    return bool(codes.min() >= info.min and codes.max() <= info.max)
 
 
 def _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, rocks,
@@ -183,11 +188,13 @@ def _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperatur
     if codes.dtype.kind not in "iub":
         raise ValueError("lithology codes must be integers")
     shape = codes.shape
-    flat_codes = np.ascontiguousarray(codes).reshape(-1)
-    q = _flat_float(runoff_mm_per_yr, shape)
-    p = _flat_float(pco2_atm, shape)
-    t = _flat_float(temperature_c, shape)
-    f = _flat_float(1.0 if soluble_fraction is None else soluble_fraction, shape)
+    # One dtype per argument kind keeps the number of compiled variants small: int32 codes
+    # (int64 if they need it), and float32 inputs unless any input is float64.
+    code_dtype = np.int32 if codes.dtype.itemsize < 8 or _fits_int32(codes) else np.int64
+    flat_codes = np.ascontiguousarray(codes, dtype=code_dtype).reshape(-1)
+    raw = [runoff_mm_per_yr, pco2_atm, temperature_c, 1.0 if soluble_fraction is None else soluble_fraction]
+    float_dtype = np.float32 if all(np.asarray(v).dtype == np.float32 for v in raw[:3]) else np.float64
+    q, p, t, f = (_flat_float(v, shape, float_dtype) for v in raw)
     litho_ok = (np.ones(shape, bool) if lithology_valid is None
                 else np.ascontiguousarray(np.broadcast_to(np.asarray(lithology_valid, bool), shape)))
     litho_ok = litho_ok.reshape(-1)
@@ -200,12 +207,16 @@ def _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperatur
     co2 = np.empty(n, np.float32)
     status = np.empty(n, np.uint8)
     loop = fk.cell_loop_parallel if threading.current_thread() is threading.main_thread() else fk.cell_loop_serial
+    # Per rock row: rate factor M / (rho purity) [mm/kyr per (mol/L * mm/yr)] and CO2
+    # factor n 44.01 [t CO2 km-2 yr-1 per (mol/L * mm/yr)].
+    rate_factor = _MOLAR_MASS_BY_INDEX[rocks.mineral_index] / (rocks.density_g_cm3 * rocks.purity)
+    co2_factor = _CO2_BY_INDEX[rocks.mineral_index] * MOLAR_MASS_CO2_G_PER_MOL
     tally = np.zeros(fk.N_STATUS, np.int64)
     (tally[fk.NODATA], tally[fk.UNKNOWN_CODE], tally[fk.OUT_OF_RANGE], tally[fk.BELOW_TABLE],
-     tally[fk.COMPUTED_ZERO_RUNOFF]) = loop(flat_codes, litho_ok, q, p, t, f, code_min, code_row, rocks.mineral_index,
-         rocks.density_g_cm3, rocks.purity, _MOLAR_MASS_BY_INDEX, _CO2_BY_INDEX,
-         tables, t0, dt, lp0, dlp, TEMPERATURE_MIN_C, TEMPERATURE_MAX_C, PCO2_MAX_ATM,
-         rate, load, co2, status)
+     tally[fk.COMPUTED_ZERO_RUNOFF]) = loop(
+        flat_codes, litho_ok, q, p, t, f, code_min, code_row, rocks.mineral_index, rate_factor,
+        co2_factor, tables, t0, dt, lp0, dlp, TEMPERATURE_MIN_C, TEMPERATURE_MAX_C, PCO2_MAX_ATM,
+        rate, load, co2, status)
     tally[fk.COMPUTED] = n - tally.sum()
     if tally[fk.BELOW_TABLE]:  # PCO2 below 1e-8 atm: solve those few cells directly
         idx = np.flatnonzero(status == fk.BELOW_TABLE)

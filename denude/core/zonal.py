@@ -21,6 +21,9 @@ and exact for a zone of constant rate.
 
 from __future__ import annotations
 
+import math
+
+import numba
 import numpy as np
 
 #: Lower edge of the log-spaced bins [mm/kyr]; below it (but > 0) is one bin.
@@ -46,6 +49,108 @@ DENSE_HISTOGRAM_LIMIT = 1 << 25
 
 _LOWER = np.concatenate(([0.0, 0.0], RATE_BIN_EDGES_MM_PER_KYR))            # per bin
 _UPPER = np.concatenate(([0.0], RATE_BIN_EDGES_MM_PER_KYR, [np.inf]))
+
+
+
+_LOG_LOW = float(np.log10(RATE_BIN_LOW_MM_PER_KYR))
+_INV_LOG_STEP = float(RATE_LOG_BINS / (np.log10(RATE_BIN_HIGH_MM_PER_KYR) - np.log10(RATE_BIN_LOW_MM_PER_KYR)))
+
+
+@numba.njit(cache=True, nogil=True)
+def _rate_bin(r, edges, log_low, inv_step):
+    """Histogram bin of one rate [mm/kyr] >= 0 (same rule as ``rate_bin_index``)."""
+    if r <= 0.0:
+        return 0
+    n_log = edges.size - 1
+    if r < edges[0]:
+        return 1
+    if r >= edges[n_log]:
+        return n_log + 2
+    k = int((math.log10(r) - log_low) * inv_step)
+    if k < 0:
+        k = 0
+    if k > n_log - 1:
+        k = n_log - 1
+    while k > 0 and r < edges[k]:
+        k -= 1
+    while k < n_log - 1 and r >= edges[k + 1]:
+        k += 1
+    return k + 2
+
+
+@numba.njit(cache=True, nogil=True)
+def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, litho, codes,
+                density_cell, density_rock, n_classes, n_rocks, edges, log_low, inv_step,
+                area, valid_area, soluble_area, s_wr, s_wr2, s_wrd, s_co2, vmin, vmax,
+                valid_cells, nodata_cells, class_area, rock_area, hist, bins):
+    """One pass over (zone, cell) pairs, adding into the accumulator arrays in place."""
+    dense = bins.size == 0
+    n_codes = codes.size
+    for i in range(zone.size):
+        w = cov[i]
+        if not w > 0.0:
+            if not dense:
+                bins[i] = -1
+            continue
+        z = zone[i]
+        c = cell[i]
+        if row_area.size > 1:
+            w *= row_area[c // width]
+        else:
+            w *= row_area[0]
+        area[z] += w
+        if fraction.size:
+            f = fraction[c]
+            if f == f:
+                soluble_area[z] += w * f
+        if co2.size:
+            v = co2[c]
+            if v == v:
+                s_co2[z] += w * v
+        if hazard.size:
+            h = hazard[c]
+            if h >= 0 and h < n_classes:
+                class_area[z, h] += w
+        rk = -1
+        if litho.size:
+            code = litho[c]
+            lo, hi = 0, n_codes
+            while lo < hi:                      # binary search in the sorted rock codes
+                mid = (lo + hi) // 2
+                if codes[mid] < code:
+                    lo = mid + 1
+                else:
+                    hi = mid
+            if lo < n_codes and codes[lo] == code and lo < n_rocks:
+                rk = lo
+                rock_area[z, rk] += w
+        r = rate[c]
+        if r != r:
+            nodata_cells[z] += 1
+            if not dense:
+                bins[i] = -1
+            continue
+        valid_cells[z] += 1
+        valid_area[z] += w
+        wr = w * r
+        s_wr[z] += wr
+        s_wr2[z] += wr * r
+        d = np.nan
+        if density_cell.size:
+            d = density_cell[c]
+        elif density_rock.size and rk >= 0:
+            d = density_rock[rk]
+        if d == d:
+            s_wrd[z] += wr * d
+        if r < vmin[z]:
+            vmin[z] = r
+        if r > vmax[z]:
+            vmax[z] = r
+        b = _rate_bin(r, edges, log_low, inv_step)
+        if dense:
+            hist[z, b] += w
+        else:
+            bins[i] = b
 
 
 def rate_bin_index(rate_mm_per_kyr) -> np.ndarray:
@@ -107,65 +212,66 @@ class ZonalAccumulator:
         nodata); optional soluble-area fraction [-], CO2 drawdown [t/km2/yr], rock density
         [g/cm3 = t/m3] (NaN = unknown), hazard class (uint8, 255 = nodata) and rock row
         (-1 = none). One entry per (zone, cell) pair; cells with weight 0 are ignored."""
-        zone = np.asarray(zone_index, dtype=np.int64).ravel()
-        w = np.asarray(weight_km2, dtype=np.float64).ravel()
-        rate = np.asarray(rate_mm_per_kyr, dtype=np.float64).ravel()
-        keep = w > 0
-        if not keep.all():
-            zone, w, rate = zone[keep], w[keep], rate[keep]
-        pick = (lambda a: np.asarray(a).ravel()[keep]) if not keep.all() else (lambda a: np.asarray(a).ravel())
+        zone = np.ascontiguousarray(zone_index, dtype=np.int64).ravel()
+        n = zone.size
+        rocks = None if rock_index is None else np.ascontiguousarray(rock_index, dtype=np.int64).ravel()
+        f64 = lambda a: None if a is None else np.asarray(a, dtype=np.float64)  # noqa: E731
+        return self.add_cells(
+            zone, np.arange(n, dtype=np.int64), weight_km2, np.ones(1), max(n, 1), f64(rate_mm_per_kyr),
+            soluble_fraction=f64(soluble_fraction), co2_t_per_km2_yr=f64(co2_t_per_km2_yr),
+            hazard_class=None if hazard_class is None else np.asarray(hazard_class, dtype=np.int64),
+            lithology_code=rocks,
+            rock_codes=np.arange(self.n_rocks, dtype=np.int64) if rocks is not None else None,
+            density_g_cm3=density_g_cm3,
+        )
+
+    def add_cells(self, zone_index, cell_index, coverage, cell_area_km2_by_row, width, rate_mm_per_kyr, *,
+                  soluble_fraction=None, co2_t_per_km2_yr=None, hazard_class=None, lithology_code=None,
+                  rock_codes=None, rock_density_g_cm3=None, density_g_cm3=None):
+        """Add (zone, cell) pairs of one block in one compiled pass.
+
+        ``cell_index`` indexes the flat (row-major, ``width`` columns) block arrays: rate
+        [mm/kyr] (NaN = nodata), soluble-area fraction [-], CO2 drawdown [t/km2/yr], hazard
+        class (255 = nodata) and lithology code. The weight of a pair is ``coverage`` [0-1]
+        x ``cell_area_km2_by_row[cell // width]`` (a length-1 array: the same for all rows).
+        A lithology code's rock row is its position in the sorted ``rock_codes`` (-1 if
+        absent); its density [g/cm3] is ``rock_density_g_cm3[row]``, or ``density_g_cm3``
+        gives a density per cell directly."""
+        e = np.zeros(0, np.float64)
+        ei = np.zeros(0, np.int64)
+        arr = lambda a, dt: e if a is None else np.ascontiguousarray(a, dtype=dt).ravel()  # noqa: E731
+        zone = np.ascontiguousarray(zone_index, dtype=np.int64).ravel()
+        cell = np.ascontiguousarray(cell_index, dtype=np.int64).ravel()
+        cov = np.ascontiguousarray(coverage, dtype=np.float64).ravel()
+        rate = np.ascontiguousarray(rate_mm_per_kyr).ravel()
+        if rate.dtype not in (np.float32, np.float64):
+            rate = rate.astype(np.float64)
+        hazard = ei if hazard_class is None or not self.n_classes else np.ascontiguousarray(hazard_class).ravel()
+        litho = ei if lithology_code is None or not self.n_rocks else np.ascontiguousarray(lithology_code).ravel()
+        codes = ei if rock_codes is None else np.ascontiguousarray(rock_codes, dtype=np.int64).ravel()
+        fraction = e if soluble_fraction is None else np.ascontiguousarray(soluble_fraction).ravel()
+        co2 = e if co2_t_per_km2_yr is None else np.ascontiguousarray(co2_t_per_km2_yr).ravel()
         if zone.size == 0:
             return self
-        n = self.n_zones
-        valid = ~np.isnan(rate)
-        self.area_km2 += np.bincount(zone, w, n)
-        if soluble_fraction is not None:
-            sf = pick(soluble_fraction).astype(np.float64)
-            self.soluble_area_km2 += np.bincount(zone, w * np.nan_to_num(sf, nan=0.0), n)
-        counts = np.bincount(zone, minlength=n)
-        vcounts = np.bincount(zone[valid], minlength=n)
-        self.valid_cells += vcounts
-        self.nodata_cells += counts - vcounts
-        if hazard_class is not None and self.n_classes:
-            hz = pick(hazard_class).astype(np.int64)
-            ok = hz < self.n_classes
-            self.class_area_km2 += np.bincount(
-                zone[ok] * self.n_classes + hz[ok], w[ok], n * self.n_classes
-            ).reshape(n, self.n_classes)
-        if rock_index is not None and self.n_rocks:
-            rk = pick(rock_index).astype(np.int64)
-            ok = (rk >= 0) & (rk < self.n_rocks)
-            self.rock_area_km2 += np.bincount(
-                zone[ok] * self.n_rocks + rk[ok], w[ok], n * self.n_rocks
-            ).reshape(n, self.n_rocks)
-        if co2_t_per_km2_yr is not None:
-            co2 = pick(co2_t_per_km2_yr).astype(np.float64)
-            self.sum_w_co2 += np.bincount(zone, w * np.nan_to_num(co2, nan=0.0), n)
-        if not valid.any():
-            return self
-        dens = pick(density_g_cm3).astype(np.float64)[valid] if density_g_cm3 is not None else None
-        zone, w, rate = zone[valid], w[valid], rate[valid]
-        wr = w * rate
-        self.valid_area_km2 += np.bincount(zone, w, n)
-        self.sum_w_rate += np.bincount(zone, wr, n)
-        self.sum_w_rate2 += np.bincount(zone, wr * rate, n)
-        if dens is not None:
-            self.sum_w_rate_density += np.bincount(zone, wr * np.nan_to_num(dens, nan=0.0), n)
-        # min / max: reduce over runs of equal zone index (sort only if not grouped already)
-        if zone.size > 1 and np.any(zone[1:] < zone[:-1]):
-            order = np.argsort(zone, kind="stable")
-            szone, srate = zone[order], rate[order]
-        else:
-            szone, srate = zone, rate
-        starts, zones = _group_bounds(szone)
-        np.minimum.at(self.min_rate, zones, np.minimum.reduceat(srate, starts))
-        np.maximum.at(self.max_rate, zones, np.maximum.reduceat(srate, starts))
-        # histogram
-        key = zone * N_RATE_BINS + rate_bin_index(rate)
-        if self.dense:
-            self.hist += np.bincount(key, w, n * N_RATE_BINS).reshape(n, N_RATE_BINS)
-        else:
-            self._sparse_add(key, w)
+        if (zone.min() < 0 or zone.max() >= self.n_zones or cell.min() < 0 or cell.max() >= rate.size
+                or cov.size != zone.size or cell.size != zone.size):
+            raise ValueError("zone or cell index out of range, or pair arrays of different lengths")
+        hist = self.hist if self.dense else np.zeros((1, 1))
+        bins = np.empty(0 if self.dense else zone.size, np.int64)
+        _accumulate(
+            zone, cell, cov, np.ascontiguousarray(cell_area_km2_by_row, dtype=np.float64).ravel(), int(width),
+            rate, fraction, co2, hazard, litho, codes, arr(density_g_cm3, np.float64),
+            arr(rock_density_g_cm3, np.float64), self.n_classes, self.n_rocks,
+            RATE_BIN_EDGES_MM_PER_KYR, _LOG_LOW, _INV_LOG_STEP,
+            self.area_km2, self.valid_area_km2, self.soluble_area_km2, self.sum_w_rate, self.sum_w_rate2,
+            self.sum_w_rate_density, self.sum_w_co2, self.min_rate, self.max_rate, self.valid_cells,
+            self.nodata_cells, self.class_area_km2, self.rock_area_km2, hist, bins,
+        )
+        if not self.dense:
+            ok = bins >= 0
+            weights = cov[ok] * (np.asarray(cell_area_km2_by_row, np.float64).ravel()[cell[ok] // int(width)]
+                                 if np.size(cell_area_km2_by_row) > 1 else float(np.ravel(cell_area_km2_by_row)[0]))
+            self._sparse_add(zone[ok] * N_RATE_BINS + bins[ok], weights)
         return self
 
     def _sparse_add(self, keys, weights):
@@ -310,6 +416,10 @@ class ZonalAccumulator:
                 present = self.class_area_km2 > 0
                 top = self.n_classes - 1 - np.argmax(present[:, ::-1], axis=1)
                 cols["hazard_max_class"] = np.where(present.any(axis=1), top, -1).astype(np.int64)
+                labels = list(class_names or [str(k) for k in range(self.n_classes)])
+                cols["hazard_max_name"] = np.array(
+                    [labels[k] if k >= 0 else "" for k in cols["hazard_max_class"]], dtype=object
+                )
             if self.n_rocks:
                 labels = list(rock_names or [str(k) for k in range(self.n_rocks)])
                 best = np.argmax(self.rock_area_km2, axis=1)
