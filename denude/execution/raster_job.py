@@ -41,6 +41,7 @@ from denude.io.grid import Grid, parse_crs
 from denude.io.jobfile import LAYERS, MapSettings, is_constant
 from denude.io.rasters import (
     INT32_NODATA,
+    GridReader,
     OutputSpec,
     RasterInfo,
     RasterWriter,
@@ -51,7 +52,6 @@ from denude.io.rasters import (
     open_raster,
     overlap_fraction,
     plan_warp,
-    read_on_grid,
     unique_codes,
     value_range,
 )
@@ -214,15 +214,14 @@ class InputReaders:
         self._open: dict = {}
 
     def read(self, role: str, window: Window) -> np.ndarray:
-        warp = self.plan.warps[role]
-        ds = self._open.get(role)
-        if ds is None:
-            ds = self._open[role] = open_raster(warp.info.path, role)
-        return read_on_grid(ds, warp, self.plan.grid, window)
+        reader = self._open.get(role)
+        if reader is None:
+            reader = self._open[role] = GridReader(self.plan.warps[role], self.plan.grid)
+        return reader.read(window)
 
     def close(self) -> None:
-        for ds in self._open.values():
-            ds.close()
+        for reader in self._open.values():
+            reader.close()
         self._open.clear()
 
 

@@ -117,7 +117,7 @@ class Grid:
 
     def window_transform(self, window: Window) -> Affine:
         """Affine transform of a window of this grid (integer offsets)."""
-        return self.affine * Affine.translation(int(window.col_off), int(window.row_off))
+        return self.affine @ Affine.translation(int(window.col_off), int(window.row_off))
 
     def full_window(self) -> Window:
         return Window(0, 0, self.width, self.height)

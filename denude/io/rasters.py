@@ -6,9 +6,11 @@ refused for them. Continuous inputs use bilinear, or average when coarsening. So
 destination nodata are always passed explicitly, and cells outside an input's footprint
 become nodata (NaN, or ``INT32_NODATA`` for codes), never 0.
 
-Block-by-block warping equals whole-raster warping bit for bit: each window is warped into a
-window-sized array with the window's own transform and an exact transformer (tolerance 0),
-so every destination cell is computed from the same source cells whatever the window.
+Block-by-block warping equals whole-raster warping bit for bit: a window is read from a
+WarpedVRT that spans the whole target grid, and GDAL warps that VRT in its own fixed blocks,
+so a cell's value never depends on the window that asked for it. (Warping each window into
+its own array does not have this property: GDAL's approximate transformer and resampling
+scale are derived per chunk, and values then differ in the last digits between windows.)
 """
 
 from __future__ import annotations
@@ -24,7 +26,8 @@ import rasterio
 import rasterio.shutil
 from rasterio.enums import Resampling
 from rasterio.errors import RasterioIOError
-from rasterio.warp import reproject, transform_bounds
+from rasterio.vrt import WarpedVRT
+from rasterio.warp import transform_bounds
 from rasterio.windows import Window
 
 from denude.errors import GridError, InputError, OutputError
@@ -50,6 +53,12 @@ COARSENING_RATIO = 1.5
 #: 2**28 cells = 16384 x 16384 (1 GiB of float32). Larger ones are plain tiled BigTIFFs with
 #: internal overviews, which avoids the second full pass (and temporary disk space) of the COG copy.
 COG_MAX_CELLS = 2**28
+
+#: Error allowed in the approximate coordinate transformer, pixels (gdalwarp's default; common
+#: practice, no source). Consistency between windows does not depend on it (see GridReader).
+WARP_TOLERANCE_PX = 0.125
+#: Memory for one warp chunk, MB.
+WARP_MEM_LIMIT_MB = 64
 
 COMPRESSIONS = ("deflate", "zstd")
 LAYOUTS = ("auto", "cog", "tiled")
@@ -248,42 +257,75 @@ def _mark_nodata(plan: WarpPlan, data: np.ndarray, src_nodata) -> np.ndarray:
 
 def read_on_grid(dataset, plan: WarpPlan, grid: Grid, window: Window) -> np.ndarray:
     """One window of an input on the target grid: int32 codes (INT32_NODATA = none) for
-    categorical inputs, float32/64 values (NaN = none) for continuous ones."""
-    rows, cols = int(window.height), int(window.width)
-    dtype = _dest_dtype(plan)
-    nodata = _dest_nodata(plan)
-    src_nodata = dataset.nodata
-    out = np.full((rows, cols), nodata, dtype=dtype)
-    if plan.offset is not None:
-        r0 = int(window.row_off) + plan.offset[0]
-        c0 = int(window.col_off) + plan.offset[1]
-        rs, re_ = max(r0, 0), min(r0 + rows, dataset.height)
-        cs, ce = max(c0, 0), min(c0 + cols, dataset.width)
-        if rs < re_ and cs < ce:
-            block = dataset.read(1, window=Window(cs, rs, ce - cs, re_ - rs))
-            out[rs - r0:re_ - r0, cs - c0:ce - c0] = _mark_nodata(plan, block, src_nodata)
-        return out
-    # skip windows clearly outside the footprint (their cells would be nodata anyway)
-    transform = grid.window_transform(window)
-    wl, wt = transform.c, transform.f
-    wr, wb = wl + transform.a * cols, wt + transform.e * rows
-    l, b, r, t = plan.footprint
-    margin = 2.0 * max(grid.res[0], grid.res[1], (r - l) / plan.info.width, (t - b) / plan.info.height)
-    if wr < l - margin or wl > r + margin or wt < b - margin or wb > t + margin:
-        return out
-    reproject(
-        source=rasterio.band(dataset, 1),
-        destination=out,
-        src_nodata=src_nodata,
-        dst_transform=transform,
-        dst_crs=grid.crs,
-        dst_nodata=nodata,
-        resampling=RESAMPLING[plan.resampling],
-        init_dest_nodata=True,
-        num_threads=1,
-        tolerance=0.0,
-    )
-    return out
+    categorical inputs, float32/64 values (NaN = none) for continuous ones.
+
+    ``dataset`` is the open input; for a plan that needs warping pass the ``GridReader``
+    (or call ``GridReader.read``), which warps through a full-grid WarpedVRT."""
+    reader = GridReader(plan, grid, dataset=dataset)
+    try:
+        return reader.read(window)
+    finally:
+        reader.close()
+
+
+class GridReader:
+    """Reads windows of one input on the target grid. Not shared between threads.
+
+    Aligned inputs are plain window reads. Other inputs are read through one WarpedVRT
+    spanning the whole target grid: GDAL warps such a VRT in fixed blocks, so the value of a
+    cell does not depend on which window asked for it (tiled == whole, bit for bit)."""
+
+    def __init__(self, plan: WarpPlan, grid: Grid, dataset=None):
+        self.plan = plan
+        self.grid = grid
+        self._own = dataset is None
+        self.dataset = dataset if dataset is not None else open_raster(plan.info.path, plan.info.role)
+        self.vrt = None
+        self.dtype = _dest_dtype(plan)
+        self.nodata = _dest_nodata(plan)
+
+    def _warped(self):
+        if self.vrt is None:
+            self.vrt = WarpedVRT(
+                self.dataset, crs=self.grid.crs, transform=self.grid.affine,
+                width=self.grid.width, height=self.grid.height,
+                resampling=RESAMPLING[self.plan.resampling],
+                src_nodata=self.dataset.nodata, nodata=self.nodata,
+                dtype=np.dtype(self.dtype).name, tolerance=WARP_TOLERANCE_PX,
+                warp_mem_limit=WARP_MEM_LIMIT_MB,
+            )
+        return self.vrt
+
+    def read(self, window: Window) -> np.ndarray:
+        plan, grid = self.plan, self.grid
+        rows, cols = int(window.height), int(window.width)
+        out = np.full((rows, cols), self.nodata, dtype=self.dtype)
+        if plan.offset is not None:
+            ds = self.dataset
+            r0 = int(window.row_off) + plan.offset[0]
+            c0 = int(window.col_off) + plan.offset[1]
+            rs, re_ = max(r0, 0), min(r0 + rows, ds.height)
+            cs, ce = max(c0, 0), min(c0 + cols, ds.width)
+            if rs < re_ and cs < ce:
+                block = ds.read(1, window=Window(cs, rs, ce - cs, re_ - rs))
+                out[rs - r0:re_ - r0, cs - c0:ce - c0] = _mark_nodata(plan, block, ds.nodata)
+            return out
+        # windows clearly outside the footprint hold nodata only: skip the warp
+        transform = grid.window_transform(window)
+        wl, wt = transform.c, transform.f
+        wr, wb = wl + transform.a * cols, wt + transform.e * rows
+        l, b, r, t = plan.footprint
+        margin = 2.0 * max(grid.res[0], grid.res[1], (r - l) / plan.info.width, (t - b) / plan.info.height)
+        if wr < l - margin or wl > r + margin or wt < b - margin or wb > t + margin:
+            return out
+        return self._warped().read(1, window=window, out_dtype=self.dtype)
+
+    def close(self) -> None:
+        if self.vrt is not None:
+            self.vrt.close()
+            self.vrt = None
+        if self._own:
+            self.dataset.close()
 
 
 def value_range(path, role: str, max_side: int = 1024) -> tuple[float, float, int]:

@@ -1,0 +1,168 @@
+"""Warping inputs onto the target grid window by window, and reading input facts."""
+
+import numpy as np
+import pytest
+import rasterio
+from rasterio.enums import Resampling
+from rasterio.transform import from_origin
+from rasterio.warp import reproject
+
+from denude.errors import GridError, InputError
+from denude.execution.blocks import block_windows
+from denude.io.grid import Grid
+from denude.io.rasters import (
+    INT32_NODATA,
+    inspect_raster,
+    overview_factors,
+    plan_warp,
+    read_on_grid,
+    unique_codes,
+    value_range,
+)
+
+
+def warp_tiled(path, role, grid, categorical, block=16, requested="auto"):
+    """Assemble a whole grid from per-window reads."""
+    plan = plan_warp(inspect_raster(path, role), grid, categorical, requested)
+    out = None
+    with rasterio.open(path) as ds:
+        for window in block_windows(grid.height, grid.width, block):
+            part = read_on_grid(ds, plan, grid, window)
+            if out is None:
+                out = np.empty(grid.shape, part.dtype)
+            r, c = int(window.row_off), int(window.col_off)
+            out[r:r + part.shape[0], c:c + part.shape[1]] = part
+    return out, plan
+
+
+def warp_whole(path, role, grid, categorical, requested="auto"):
+    plan = plan_warp(inspect_raster(path, role), grid, categorical, requested)
+    with rasterio.open(path) as ds:
+        return read_on_grid(ds, plan, grid, grid.full_window()), plan
+
+
+@pytest.fixture
+def smooth_field(make_raster):
+    """A smooth continuous field (degrees C) on a 60 x 70 grid in UTM metres, nodata -9999 in a corner."""
+    yy, xx = np.mgrid[0:60, 0:70]
+    data = (5.0 + 0.1 * xx + 0.05 * yy + np.sin(xx / 7.0)).astype(np.float32)
+    data[:3, :3] = -9999.0
+    return make_raster("field.tif", data, nodata=-9999.0), data
+
+
+# a target grid in geographic degrees inside the UTM raster above (zone 32, ~46.9 N, ~7.7 E)
+def geographic_grid(res=0.0008):
+    return Grid.from_bounds("EPSG:4326", res, (7.69, 46.90, 7.75, 46.94))
+
+
+def test_continuous_from_other_crs_matches_rasterio_reproject(smooth_field):
+    path, data = smooth_field
+    grid = geographic_grid()
+    tiled, plan = warp_tiled(path, "temperature", grid, categorical=False)
+    assert plan.resampling == "bilinear" and plan.offset is None
+    # reference: rasterio.warp.reproject of the whole array onto the whole grid
+    expected = np.full(grid.shape, np.nan, np.float32)
+    with rasterio.open(path) as ds:
+        reproject(data, expected, src_transform=ds.transform, src_crs=ds.crs, src_nodata=-9999.0,
+                  dst_transform=grid.affine, dst_crs=grid.crs, dst_nodata=np.nan,
+                  resampling=Resampling.bilinear)
+    finite = np.isfinite(expected)
+    assert finite.sum() > 0.5 * expected.size
+    np.testing.assert_array_equal(np.isfinite(tiled), finite)
+    # both use GDAL's approximate transformer (0.125 px) but chunk the grid differently, so
+    # values agree to a small fraction of the field's change per cell (about 0.1 per cell here)
+    np.testing.assert_allclose(tiled[finite], expected[finite], rtol=0, atol=2e-3)
+
+
+@pytest.mark.parametrize("res,method", [(0.0008, "bilinear"), (0.004, "average"), (0.0008, "cubic")])
+def test_tiled_equals_whole_bit_for_bit(smooth_field, res, method):
+    path, _ = smooth_field
+    grid = geographic_grid(res)
+    requested = "auto" if method != "cubic" else "cubic"
+    tiled, plan = warp_tiled(path, "temperature", grid, False, requested=requested)
+    whole, _ = warp_whole(path, "temperature", grid, False, requested=requested)
+    assert plan.resampling == method
+    assert tiled.tobytes() == whole.tobytes()
+
+
+def test_categorical_keeps_its_class_set(make_raster):
+    rng = np.random.default_rng(3)
+    codes = rng.choice(np.array([1, 2, 5, 9], dtype=np.int16), size=(60, 70))
+    path = make_raster("codes.tif", codes, nodata=-1)
+    for res, method in ((0.0008, "nearest"), (0.004, "mode")):
+        grid = geographic_grid(res)
+        tiled, plan = warp_tiled(path, "lithology", grid, True)
+        whole, _ = warp_whole(path, "lithology", grid, True)
+        assert plan.resampling == method
+        found = set(np.unique(tiled[tiled != INT32_NODATA]).tolist())
+        assert found <= {1, 2, 5, 9} and len(found) >= 3
+        assert tiled.tobytes() == whole.tobytes()
+
+
+def test_bilinear_refused_for_categorical(make_raster):
+    path = make_raster("codes.tif", np.ones((20, 20), np.int16))
+    grid = geographic_grid()
+    with pytest.raises(InputError, match="not allowed for a categorical"):
+        plan_warp(inspect_raster(path, "lithology"), grid, True, "bilinear")
+
+
+def test_cells_outside_the_footprint_are_nodata(make_raster):
+    # source covers the west half of the target grid only (same CRS, finer, not aligned)
+    src = make_raster("half.tif", np.full((20, 10), 7.0, np.float32), res=50.0, origin=(1000.0, 2000.0))
+    codes = make_raster("halfcodes.tif", np.full((20, 10), 3, np.uint8), res=50.0, origin=(1000.0, 2000.0))
+    grid = Grid.from_bounds("EPSG:32632", 30.0, (1000.0, 1010.0, 1990.0, 2000.0))
+    values, _ = warp_tiled(src, "runoff", grid, False)
+    classes, _ = warp_tiled(codes, "lithology", grid, True)
+    east = grid.affine.c + (np.arange(grid.width) + 0.5) * 30.0 > 1500.0 + 30.0
+    assert np.isnan(values[:, east]).all()
+    assert (classes[:, east] == INT32_NODATA).all()
+    assert (values[:, ~east][:, :10] == 7.0).all()   # never 0 outside, real value inside
+    assert (classes[:, :10] == 3).all()
+
+
+def test_aligned_subgrid_is_a_plain_read(make_raster):
+    data = np.arange(30 * 40, dtype=np.float32).reshape(30, 40)
+    path = make_raster("big.tif", data, nodata=-1.0)
+    # target grid: offset by (2 rows, 3 cols) and reaching 5 columns past the east edge
+    grid = Grid(inspect_raster(path, "runoff").crs_wkt, (100.0, 0.0, 400300.0, 0.0, -100.0, 5199800.0), 42, 20)
+    out, plan = warp_tiled(path, "runoff", grid, False)
+    assert plan.offset == (2, 3)
+    np.testing.assert_array_equal(out[:, :37], data[2:22, 3:40])
+    assert np.isnan(out[:, 37:]).all()
+
+
+def test_no_overlap_is_grid_error(make_raster):
+    path = make_raster("far.tif", np.ones((10, 10), np.float32), origin=(900000.0, 100000.0))
+    grid = Grid.from_bounds("EPSG:32632", 100.0, (0, 0, 1000, 1000))
+    with pytest.raises(GridError, match="does not overlap"):
+        plan_warp(inspect_raster(path, "runoff"), grid, False)
+
+
+def test_no_crs_and_not_a_raster(make_raster, tmp_path):
+    path = make_raster("nocrs.tif", np.ones((10, 10), np.float32), crs=None)
+    with pytest.raises(GridError, match="no CRS"):
+        inspect_raster(path, "runoff")
+    text = tmp_path / "notes.tif"
+    text.write_text("plain text")
+    with pytest.raises(InputError, match="not a readable raster"):
+        inspect_raster(text, "runoff")
+    with pytest.raises(InputError, match="not found"):
+        inspect_raster(tmp_path / "missing.tif", "runoff")
+
+
+def test_unique_codes_and_value_range(make_raster):
+    codes = np.zeros((40, 40), np.int16)
+    codes[39, 39] = 7        # one cell in the last block
+    codes[0, 0] = -1         # nodata
+    path = make_raster("codes.tif", codes, nodata=-1)
+    assert unique_codes(path) == [0, 7]
+    data = np.linspace(-2, 3, 1600, dtype=np.float32).reshape(40, 40)
+    data[0, 0] = -9999
+    lo, hi, n = value_range(make_raster("v.tif", data, nodata=-9999), "runoff")
+    assert n == 1599 and lo == pytest.approx(data.ravel()[1]) and hi == pytest.approx(3.0)
+
+
+def test_overview_factors_stop_at_one_tile():
+    assert overview_factors(64, 48, 16) == [2, 4]      # 64 -> 32 -> 16 (one tile)
+    assert overview_factors(16, 16, 16) == []
+    assert overview_factors(8192, 8192, 512) == [2, 4, 8, 16]
