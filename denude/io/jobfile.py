@@ -55,7 +55,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
-from denude.errors import InputError, JobFileError
+from denude.errors import DenudeError, InputError, JobFileError
 
 PCO2_FROM_AET = "from-aet"
 PCO2_UNITS = ("atm", "ppmv", "log10atm")
@@ -328,6 +328,8 @@ def _coerce(name: str, value, base: Path | None, where: str):
             return tuple(str(v) for v in value)
         if name in ("chemistry", "pco2_units", "layout", "compress", "lithology_resampling", "continuous_resampling"):
             return str(value).strip().lower()
+    except DenudeError:
+        raise
     except (TypeError, ValueError):
         raise JobFileError(f"{where} = {value!r} has the wrong type or length; see `denude map --help`") from None
     return value
