@@ -56,18 +56,24 @@ def _init_worker() -> None:
     limit_threads(1)
 
 
-class _Done:
-    """A finished inline call, shaped like a future."""
+class _Call:
+    """A call run by ``InlineEngine.wait_any`` (lazily, so results are recorded one by one)."""
 
     def __init__(self, fn, task):
+        self.fn, self.task = fn, task
+        self.finished = False
+        self.value = self.error = None
+
+    def run(self):
         try:
-            self._value, self._error = fn(task), None
+            self.value = self.fn(self.task)
         except Exception as exc:  # reported per tile by the driver
-            self._value, self._error = None, exc
+            self.error = exc
+        self.finished = True
 
 
 class InlineEngine:
-    """Runs each task in the calling process at submit time."""
+    """Runs the tasks in the calling process, one at a time, in submission order."""
 
     name = "inline"
     dashboard_link = None
@@ -82,13 +88,16 @@ class InlineEngine:
         return "in this process (1 worker)"
 
     def submit(self, fn, task):
-        return _Done(fn, task)
+        return _Call(fn, task)
 
     def wait_any(self, handles):
-        return list(handles)
+        call = next(iter(handles))
+        if not call.finished:
+            call.run()
+        return [call]
 
     def outcome(self, handle):
-        return (handle._error is None, handle._value if handle._error is None else handle._error)
+        return (handle.error is None, handle.value if handle.error is None else handle.error)
 
 
 def _context():
@@ -161,6 +170,7 @@ class DaskEngine:
         self.connect_timeout_s = connect_timeout_s
         self.client = None
         self.dashboard_link = None
+        self._finished = None      # distributed.as_completed over every submitted future
 
     def __enter__(self):
         try:
@@ -198,13 +208,21 @@ class DaskEngine:
         return f"Dask cluster at {self.address}, {n} worker(s)"
 
     def submit(self, fn, task):
-        return self.client.submit(fn, task, pure=False)
+        from distributed import as_completed
+
+        future = self.client.submit(fn, task, pure=False)
+        if self._finished is None:
+            self._finished = as_completed([future], loop=self.client.loop)
+        else:
+            self._finished.add(future)
+        return future
 
     def wait_any(self, handles):
-        from distributed import wait
-
-        done, _ = wait(list(handles), return_when="FIRST_COMPLETED")
-        return list(done)
+        wanted = set(handles)
+        while True:
+            done = [f for f in self._finished.next_batch(block=True) if f in wanted]
+            if done:
+                return done
 
     def outcome(self, handle):
         try:
