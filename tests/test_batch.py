@@ -286,3 +286,63 @@ def test_zone_summaries_over_tiles_equal_merged_raster(region, tmp_path):
         np.testing.assert_allclose(tiled[column].to_numpy(float), whole[column].to_numpy(float), rtol=1e-9, atol=1e-9,
                                    err_msg=column)
     assert tiled["area_km2"].iloc[1] == pytest.approx(5.1 * 3.95)   # km2 of the box inside the grid
+
+
+# ------------------------------------------------------------------------------- CLI
+def cli_args(paths, out, *extra):
+    return ["batch", "--lithology", str(paths["lithology"]), "--runoff", str(paths["runoff"]),
+            "--pco2", str(paths["pco2"]), "--temperature", str(paths["temperature"]), "--out", str(out),
+            "--block-size", "16", "--tile-size", "32", *extra]
+
+
+def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
+    out = tmp_path / "cli"
+    runner = CliRunner()
+    dry = runner.invoke(app, cli_args(region["paths"], out, "--dry-run"))
+    assert dry.exit_code == 0 and "tiles: 6 (2 x 3)" in dry.output and not out.exists()
+    first = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
+    assert first.exit_code == 0, first.output
+    assert "6 tiles, 6 computed, 0 already done, 0 failed" in first.output
+    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "run.json", "tiles", ".batch.lock"])
+    again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
+    assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
+
+
+@pytest.mark.parametrize("extra, code, words", [
+    (["--tile-size", "40"], 1, "multiple of 16"),
+    (["--retries", "-1"], 1, "retries -1"),
+    (["--workers", "many"], 2, "usage error"),
+    (["--tile-sizes", "32"], 2, "usage error"),
+])
+def test_cli_errors_are_one_line(region, tmp_path, extra, code, words):
+    result = CliRunner().invoke(app, cli_args(region["paths"], tmp_path / "e", *extra))
+    assert result.exit_code == code
+    lines = [line for line in result.stderr.splitlines() if line.strip()]
+    assert len(lines) == 1 and words in lines[0] and "Traceback" not in result.output
+
+
+def test_job_file_batch_table(region, tmp_path):
+    p = region["paths"]
+    job = tmp_path / "job.toml"
+    job.write_text(textwrap.dedent(f"""
+        [inputs]
+        lithology = "{p['lithology']}"
+        runoff = "{p['runoff']}"
+        pco2 = "{p['pco2']}"
+        temperature = "{p['temperature']}"
+        [run]
+        out = "out"
+        block_size = 16
+        [batch]
+        tile_size = 32
+        workers = 0
+        retries = 1
+    """))
+    result = CliRunner().invoke(app, ["batch", "--job", str(job), "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert len(manifest(tmp_path / "out")["tiles"]) == 6
+    run = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert run["settings"]["job_file"] == str(job) and run["tile_size"] == 32
+    job.write_text(job.read_text().replace("retries", "retrys"))
+    bad = CliRunner().invoke(app, ["batch", "--job", str(job)])
+    assert bad.exit_code == 1 and "did you mean 'retries'" in bad.stderr

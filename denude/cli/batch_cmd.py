@@ -42,7 +42,7 @@ BATCH_EXTRA = {
     "zones_id_field": (Annotated[Optional[str], typer.Option(help="Zone id field (default: feature ids as zone_id).")], None),
 }
 
-WORKERS_OPTION = Annotated[Optional[int], typer.Option("--workers", metavar="N", help="Local worker processes (default: cores available).")]
+WORKERS_OPTION = Annotated[Optional[int], typer.Option("--workers", metavar="N", help="Local worker processes (default: cores available; 0 = in this process).")]
 
 
 def _signature() -> inspect.Signature:

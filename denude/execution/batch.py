@@ -89,7 +89,7 @@ class TileTask:
     layers: tuple
     block_size: int              # cells
     layout: str                  # tile file layout: 'cog' or 'tiled'
-    gdal_env: tuple = ()         # (name, value) GDAL config options applied inside the task
+    gdal_env: dict = field(default_factory=dict)   # GDAL config options, applied with rasterio.Env in the task
     zones: ZoneSpec | None = None
     threads: int = 1             # kernel threads per task
 
@@ -187,14 +187,22 @@ def run_tile(task: TileTask) -> dict:
     """Compute and write one tile; returns its record for the manifest (outputs with SHA-256
     and size, cell counts). The tile folder appears under its final name only when complete.
     The same function runs in every engine."""
+    previous_threads = _engines.limit_threads(task.threads)
+    try:
+        return _run_tile(task)
+    finally:
+        if previous_threads is not None:
+            _engines.limit_threads(previous_threads)
+
+
+def _run_tile(task: TileTask) -> dict:
     import rasterio
 
-    from denude.execution.raster_job import LAYER_INFO, load_rocks, output_spec, prepare_job, compute_window
+    from denude.core.kernel import BlockCounts
+    from denude.execution.raster_job import LAYER_INFO, compute_window, output_spec, prepare_job
     from denude.io.rasters import RasterWriter, file_sha256
     from denude.io.rock_csv import write_rock_table
-    from denude.core.kernel import BlockCounts
 
-    _engines.limit_threads(task.threads)
     started = time.perf_counter()
     settings, tile = task.settings, task.tile
     tiles_dir = Path(task.tiles_dir)
@@ -202,7 +210,7 @@ def run_tile(task: TileTask) -> dict:
     writers = {}
     readers = None
     try:
-        with rasterio.Env(**dict(task.gdal_env)):
+        with rasterio.Env(**task.gdal_env):
             plan = prepare_job(settings, task.grid)
             rocks = plan.rocks
             staging.mkdir(parents=True)
@@ -280,7 +288,7 @@ class BatchSummary:
     grid: Grid
     tile_size: int
     tiles_total: int
-    tiles_run: int                      # computed in this run
+    tiles_run: int                      # tiles attempted in this run
     tiles_skipped: int                  # already done and verified
     tiles_failed: dict                  # tile id -> one-line error
     outputs: list                       # files written into OUTDIR (VRTs, merged COGs, summaries)
@@ -425,9 +433,10 @@ def _preflight(settings: MapSettings):
     return grid, plan
 
 
-def _gdal_env(settings: MapSettings) -> tuple:
-    return (("GDAL_CACHEMAX", int(settings.gdal_cache_mb) * 2**20), ("GDAL_NUM_THREADS", "1"),
-            ("GDAL_DISABLE_READDIR_ON_OPEN", "EMPTY_DIR"))
+def _gdal_env(settings: MapSettings) -> dict:
+    """GDAL config options sent with every task (workers may run on other machines)."""
+    return {"GDAL_CACHEMAX": int(settings.gdal_cache_mb) * 2**20, "GDAL_NUM_THREADS": "1",
+            "GDAL_DISABLE_READDIR_ON_OPEN": "EMPTY_DIR"}
 
 
 def _layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: MapSettings, layers) -> list[str]:
@@ -653,7 +662,8 @@ def run_batch(
                         rec = manifest.tiles[tid]
                         rec["attempts"] = attempts[tid]
                         if ok:
-                            rec.update(state="done", error=None, outputs=value["outputs"], counts=value["counts"])
+                            rec.update(state="done", error=None, outputs=value["outputs"], counts=value["counts"],
+                                       wall_time_s=value["wall_time_s"])
                         elif attempts[tid] <= retries:
                             attempts[tid] += 1
                             pending[engine.submit(run_tile, tasks[tid])] = tid
@@ -698,6 +708,5 @@ def run_batch(
             "manifest": MANIFEST_NAME, "wall_time_s": round(wall, 3),
         }
         write_text_atomic(out / RUN_JSON, json.dumps(record, indent=2, default=str) + "\n")
-    return BatchSummary(str(out), grid, size, len(tiles), total - len([f for f in failed if f in {t.id for t in to_run}]),
-                        skipped, dict(sorted(failed.items())), outputs, engine_name, link, counts,
+    return BatchSummary(str(out), grid, size, len(tiles), total, skipped, dict(sorted(failed.items())), outputs, engine_name, link, counts,
                         wall, corrupt)

@@ -17,7 +17,8 @@ Layout (format ``denude-batch-manifest/1``)::
           "attempts": 1,                                     # attempts in the last run
           "error": null | "one-line message",
           "outputs": {"denudation_mm_per_kyr.tif": {"sha256": "...", "size_bytes": 123}, ...},
-          "counts": {... BlockCounts.as_dict() ...}
+          "counts": {... BlockCounts.as_dict() ...},
+          "wall_time_s": 1.23                                # seconds the tile took (informative)
         }, ...
       }
     }
