@@ -56,7 +56,7 @@ def map_options(
     block_size: Annotated[Optional[int], typer.Option(help="Block and output tile size, cells (default 512).")] = None,
     gdal_cache_mb: Annotated[Optional[int], typer.Option(help="GDAL block cache, MB (default 256).")] = None,
     layers: Annotated[Optional[str], typer.Option(help=f"Comma-separated output layers (default all): {', '.join(LAYERS)}.")] = None,
-    layout: Annotated[Optional[str], typer.Option(help="auto (COG up to 16384 x 16384 cells), cog or tiled.")] = None,
+    layout: Annotated[Optional[str], typer.Option(help="auto (COG up to 8192 x 8192 cells, else tiled BigTIFF), cog or tiled.")] = None,
     compress: Annotated[Optional[str], typer.Option(help="deflate or zstd.")] = None,
     lithology_resampling: Annotated[Optional[str], typer.Option(help="auto, nearest or mode (bilinear is refused).")] = None,
     continuous_resampling: Annotated[Optional[str], typer.Option(help="auto, bilinear, cubic, average or nearest.")] = None,

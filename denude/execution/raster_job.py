@@ -386,10 +386,21 @@ def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
             )
 
 
+def gdal_env(settings: MapSettings):
+    """GDAL settings of a job: the block cache sized deliberately (GDAL_CACHEMAX is in bytes
+    here; GDAL's default is 5 % of RAM, which would let memory grow with raster size)."""
+    return rasterio.Env(GDAL_CACHEMAX=settings.gdal_cache_mb * 2**20)
+
+
 def inspect_job(settings: MapSettings, for_output: bool = True) -> JobReport:
     """Validate a job without writing anything: inputs exist and are rasters with a CRS, overlap
     the target grid, plausible values, every lithology code in the rock table, output path safe.
     Raises a one-line DenudeError on the first problem; returns the report for `denude check`."""
+    with gdal_env(settings):
+        return _inspect_job(settings, for_output)
+
+
+def _inspect_job(settings: MapSettings, for_output: bool) -> JobReport:
     rocks = load_rocks(settings)
     roles = raster_roles(settings)
     if for_output:
@@ -520,7 +531,12 @@ def run_map(settings: MapSettings, progress: Callable[[int, int], None] | None =
     files. ``progress(done, total)`` is called after each window is written.
     """
     started = time.perf_counter()
-    report = inspect_job(settings, for_output=True)
+    with gdal_env(settings):
+        return _run_map(settings, progress, started)
+
+
+def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
+    report = _inspect_job(settings, for_output=True)
     grid = report.grid
     out = Path(settings.out).resolve()
     windows = block_windows(grid.height, grid.width, settings.block_size)
@@ -549,33 +565,34 @@ def run_map(settings: MapSettings, progress: Callable[[int, int], None] | None =
 
     total = BlockCounts()
     try:
-        with rasterio.Env(GDAL_CACHEMAX=settings.gdal_cache_mb * 2**20):
-            for name in layers:
-                writers[name] = RasterWriter(staging / LAYER_INFO[name].file, grid, output_spec(name, settings),
-                                             settings.block_size, settings.compress, report.layout)
-            in_flight = 2 * settings.workers
-            with ThreadPoolExecutor(max_workers=settings.workers, thread_name_prefix="denude-window") as pool:
-                pending: deque = deque()
-                queue = iter(windows)
-                for window in queue:
-                    pending.append(pool.submit(work, window))
-                    if len(pending) >= in_flight:
-                        break
-                done = 0
-                while pending:
-                    result = pending.popleft().result()
-                    nxt = next(queue, None)
-                    if nxt is not None:
-                        pending.append(pool.submit(work, nxt))
-                    for name, array in result.arrays.items():
-                        writers[name].write(array, result.window)
-                    total = total + result.counts
-                    done += 1
-                    if progress is not None:
-                        progress(done, len(windows))
-            for reader in all_readers:
-                reader.close()
-            outputs = [writers[name].close().name for name in layers]
+        for name in layers:
+            writers[name] = RasterWriter(staging / LAYER_INFO[name].file, grid, output_spec(name, settings),
+                                         settings.block_size, settings.compress, report.layout)
+        in_flight = 2 * settings.workers
+        with ThreadPoolExecutor(max_workers=settings.workers, thread_name_prefix="denude-window") as pool:
+            pending: deque = deque()
+            queue = iter(windows)
+            for window in queue:
+                pending.append(pool.submit(work, window))
+                if len(pending) >= in_flight:
+                    break
+            done = 0
+            while pending:
+                result = pending.popleft().result()
+                nxt = next(queue, None)
+                if nxt is not None:
+                    pending.append(pool.submit(work, nxt))
+                for name, array in result.arrays.items():
+                    writers[name].write(array, result.window)
+                total = total + result.counts
+                done += 1
+                if progress is not None:
+                    progress(done, len(windows))
+        for reader in all_readers:
+            reader.close()
+        for name in layers:          # overviews / COG copies of all outputs run side by side
+            writers[name].finish()
+        outputs = [writers[name].close().name for name in layers]
         write_rock_table(report.rocks, staging / "rocks.csv")
         outputs.append("rocks.csv")
         hasher.join()

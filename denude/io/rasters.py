@@ -18,6 +18,8 @@ from __future__ import annotations
 import hashlib
 import math
 import os
+import queue
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -50,9 +52,10 @@ CONTINUOUS_METHODS = ("bilinear", "cubic", "average", "nearest")
 COARSENING_RATIO = 1.5
 
 #: Rasters with at most this many cells are written in cloud-optimised (COG) layout by default:
-#: 2**28 cells = 16384 x 16384 (1 GiB of float32). Larger ones are plain tiled BigTIFFs with
-#: internal overviews, which avoids the second full pass (and temporary disk space) of the COG copy.
-COG_MAX_CELLS = 2**28
+#: 2**26 cells = 8192 x 8192 (256 MiB of float32). The COG layout needs a second pass (GDAL's COG
+#: driver copies an uncompressed intermediate, which also needs that much temporary disk per
+#: output), so larger rasters are plain tiled BigTIFFs with internal overviews instead.
+COG_MAX_CELLS = 2**26
 
 #: Error allowed in the approximate coordinate transformer, pixels (gdalwarp's default; common
 #: practice, no source). Consistency between windows does not depend on it (see GridReader).
@@ -424,12 +427,20 @@ def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
 class RasterWriter:
     """Writes one output raster window by window, then adds overviews (and the COG layout).
 
-    ``path`` is the final file name; in COG layout the blocks go to ``<path>.partial.tif``
-    first and are copied to ``path`` by the COG driver when closed.
+    Windows are handed to a writer thread of this raster through a short FIFO queue, so the
+    compression of different outputs runs in parallel with each other and with the compute
+    workers, while each file still receives its blocks in one fixed order (identical bytes
+    whatever the number of workers). ``finish()`` starts overviews / the COG copy in that
+    thread; ``close()`` waits for it and returns the final path.
+
+    In COG layout the blocks first go uncompressed to ``<path>.partial.tif``; the COG driver
+    then compresses once while it writes overviews and data in cloud-optimised order.
     """
 
+    _STOP, _ABORT = object(), object()
+
     def __init__(self, path, grid: Grid, spec: OutputSpec, block_size: int, compress: str = "deflate",
-                 layout: str = "cog"):
+                 layout: str = "cog", queue_size: int = 4):
         self.path = Path(path)
         self.spec = spec
         self.grid = grid
@@ -437,15 +448,25 @@ class RasterWriter:
         self.compress = compress
         self.layout = layout
         self.options = _creation_options(spec, compress, block_size)
-        self.work_path = self.path.with_name(self.path.name + ".partial.tif") if layout == "cog" else self.path
+        if layout == "cog":
+            self.work_path = self.path.with_name(self.path.name + ".partial.tif")
+            options = {k: v for k, v in self.options.items() if k not in ("compress", "predictor")}
+        else:
+            self.work_path = self.path
+            options = self.options
         try:
             self.dataset = rasterio.open(
                 self.work_path, "w", driver="GTiff", width=grid.width, height=grid.height, count=1,
-                dtype=spec.dtype, crs=grid.crs, transform=grid.affine, nodata=spec.nodata, **self.options,
+                dtype=spec.dtype, crs=grid.crs, transform=grid.affine, nodata=spec.nodata, **options,
             )
         except RasterioIOError as exc:
             raise OutputError(f"{self.work_path}: cannot create the output raster ({exc}); check the folder is writable") from None
         self._describe(self.dataset)
+        self._queue: queue.Queue = queue.Queue(maxsize=queue_size)
+        self._error: BaseException | None = None
+        self._finishing = False
+        self._thread = threading.Thread(target=self._run, name=f"denude-write-{self.path.stem}", daemon=True)
+        self._thread.start()
 
     def _describe(self, ds) -> None:
         ds.update_tags(**dict(self.spec.tags))
@@ -454,11 +475,52 @@ class RasterWriter:
         if self.spec.colormap is not None:
             ds.write_colormap(1, {i: tuple(rgba) for i, rgba in enumerate(self.spec.colormap)})
 
+    def _run(self) -> None:
+        try:
+            while True:
+                item = self._queue.get()
+                if item is self._ABORT:
+                    self.dataset.close()
+                    return
+                if item is self._STOP:
+                    break
+                array, window = item
+                self.dataset.write(array.astype(self.spec.dtype, copy=False), 1, window=window)
+            self._finish_file()
+        except BaseException as exc:  # handed to the caller in close()
+            self._error = exc
+            try:
+                self.dataset.close()
+            except Exception:  # pragma: no cover
+                pass
+            while True:  # keep draining so a producer never blocks on a dead writer
+                if self._queue.get() in (self._STOP, self._ABORT):
+                    return
+
     def write(self, array: np.ndarray, window: Window) -> None:
-        self.dataset.write(array.astype(self.spec.dtype, copy=False), 1, window=window)
+        """Queue one window (blocks when the writer is several windows behind)."""
+        if self._error is not None:
+            self.close()
+        self._queue.put((array, window))
+
+    def finish(self) -> None:
+        """Start the final steps (overviews, COG copy) in the writer thread."""
+        if not self._finishing:
+            self._finishing = True
+            self._queue.put(self._STOP)
 
     def close(self) -> Path:
-        """Finish the file (overviews, COG copy); returns the final path."""
+        """Wait for the file to be complete; returns the final path."""
+        self.finish()
+        self._thread.join()
+        if self._error is not None:
+            error, self._error = self._error, None
+            if isinstance(error, RasterioIOError):
+                raise OutputError(f"{self.path}: writing failed ({error}); check free disk space") from None
+            raise error
+        return self.path
+
+    def _finish_file(self) -> None:
         ds = self.dataset
         resampling = RESAMPLING[self.spec.overview_resampling]
         if self.layout == "tiled":
@@ -467,7 +529,7 @@ class RasterWriter:
                 ds.build_overviews(factors, resampling)
                 ds.update_tags(ns="rio_overview", resampling=self.spec.overview_resampling)
             ds.close()
-            return self.path
+            return
         ds.close()
         rasterio.shutil.copy(
             self.work_path, self.path, driver="COG",
@@ -479,10 +541,10 @@ class RasterWriter:
             OVERVIEWS="AUTO",
         )
         self.work_path.unlink()
-        return self.path
 
     def abort(self) -> None:
-        try:
-            self.dataset.close()
-        except Exception:  # pragma: no cover - best effort on the error path
-            pass
+        """Stop writing and close the file without finishing it (the caller removes it)."""
+        if self._thread.is_alive():
+            self._finishing = True
+            self._queue.put(self._ABORT)
+            self._thread.join()
