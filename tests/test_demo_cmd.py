@@ -1,0 +1,75 @@
+"""`denude demo`: the whole chain on the bundled demo region, single job and tiled."""
+
+import csv
+import json
+
+import numpy as np
+import pytest
+import rasterio
+from typer.testing import CliRunner
+
+from denude.cli.demo_cmd import tile_size_for
+from denude.cli.main import app
+
+runner = CliRunner()
+
+
+def read_csv(path):
+    with open(path, newline="") as handle:
+        return {row["watershed_id"]: row for row in csv.DictReader(handle)}
+
+
+@pytest.fixture(scope="module")
+def demo_single(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "single"
+    result = runner.invoke(app, ["demo", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "not a site investigation" in result.stdout
+    return out
+
+
+def test_demo_writes_every_output(demo_single):
+    out = demo_single
+    for name in ("denudation_mm_per_kyr.tif", "dissolved_load_mmol_per_l.tif", "co2_drawdown_t_per_km2_yr.tif",
+                 "hazard_class.tif", "run.json", "watershed_summary.gpkg", "watershed_summary.csv",
+                 "watershed_summary_planning_units.csv", "watershed_summary_sinkholes.csv",
+                 "subwatershed_summary.gpkg"):
+        assert (out / name).is_file(), name
+    run = json.loads((out / "run.json").read_text())
+    assert run["counts"]["computed"] > 0.99 * run["counts"]["cells"]
+    with rasterio.open(out / "denudation_mm_per_kyr.tif") as ds:
+        rate = ds.read(1)
+        lith = rasterio.open(out / "lithology_code.tif").read(1)
+    # Plausibility bands (science notes section 5): carbonate rates mostly 10-100 mm/kyr
+    # (Ford & Williams 2007, from memory); gypsum an order of magnitude faster.
+    limestone = rate[(lith == 1) & np.isfinite(rate) & (rate > 0)]
+    assert 10 < np.median(limestone) < 100
+    gypsum = rate[(lith == 3) & np.isfinite(rate) & (rate > 0)]
+    assert np.median(gypsum) > 5 * np.median(limestone)
+    assert np.all(rate[(lith == 0) & np.isfinite(rate)] == 0)
+
+
+def test_demo_refuses_existing_folder(demo_single):
+    result = runner.invoke(app, ["demo", str(demo_single)])
+    assert result.exit_code == 1
+    assert "--overwrite" in result.stderr and len(result.stderr.strip().splitlines()) == 1
+
+
+def test_tiled_demo_gives_same_watershed_numbers(demo_single, tmp_path):
+    out = tmp_path / "tiled"
+    result = runner.invoke(app, ["demo", str(out), "--tiles", "4", "--workers", "1"])
+    assert result.exit_code == 0, result.output
+    assert len(list((out / "tiles").iterdir())) == 4
+    single = read_csv(demo_single / "watershed_summary.csv")
+    tiled = read_csv(out / "zones_summary.csv")
+    assert single.keys() == tiled.keys()
+    for zone, row in single.items():
+        for column in ("area_km2", "soluble_area_km2", "denudation_mean_mm_per_kyr", "denudation_p90_mm_per_kyr",
+                       "rock_volume_m3_per_yr", "co2_drawdown_t_per_yr", "valid_cells"):
+            assert float(tiled[zone][column]) == pytest.approx(float(row[column]), rel=1e-9, abs=1e-9), (zone, column)
+
+
+def test_tile_size_for():
+    assert tile_size_for(600, 500, 4) == 304
+    assert tile_size_for(600, 500, 1) == 608
+    assert tile_size_for(600, 500, 9) % 16 == 0
