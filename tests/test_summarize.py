@@ -28,7 +28,7 @@ X0, Y0, CELL = 500_000.0, 4_000_000.0, 1000.0   # 1 km cells: 1 cell = 1 km2
 def write_tif(path, array, transform, crs, dtype, nodata, tags=None):
     height, width = array.shape
     with rasterio.open(path, "w", driver="GTiff", width=width, height=height, count=1, dtype=dtype,
-                       crs=crs, transform=transform, nodata=nodata) as ds:
+                       crs=crs, transform=transform, nodata=nodata, tiled=True, blockxsize=16, blockysize=16) as ds:
         ds.write(array.astype(dtype), 1)
         if tags:
             ds.update_tags(**tags)
@@ -289,7 +289,12 @@ def test_rock_mass_dominant_rock_and_hazard(tmp_path):
     assert row.hazard_max_class == 3
 
 
-def test_sinkholes_and_planning_units(tmp_path, smooth):
+@pytest.mark.parametrize("workers", [1, 2])
+def test_sinkholes_and_planning_units(tmp_path, smooth, monkeypatch, workers):
+    import denude.execution.summaries as summaries
+
+    if workers > 1:
+        monkeypatch.setattr(summaries, "STRIP_CELLS", 16 * 50)  # 3 strips over 2 processes
     outdir, rate = smooth
     zones = write_zones(tmp_path / "z.gpkg", [cell_box(0, 0, 10, 10), cell_box(10, 0, 20, 10)])
     units = write_zones(tmp_path / "u.gpkg", [cell_box(0, 0, 25, 40), cell_box(25, 0, 50, 40)], ids=[101, 102],
@@ -297,7 +302,8 @@ def test_sinkholes_and_planning_units(tmp_path, smooth):
     pts = [Point(X0 + 2_500, Y0 - 3_500), Point(X0 + 7_200, Y0 - 1_100), Point(X0 + 15_500, Y0 - 9_900),
            Point(X0 - 5_000, Y0)]
     gpd.GeoDataFrame({"name": ["s1", "s2", "s3", "far"]}, geometry=pts, crs=CRS).to_file(tmp_path / "p.gpkg", engine="pyogrio")
-    table, out = run(tmp_path, outdir, zones, units_path=units, units_id_field="parcel", points_path=tmp_path / "p.gpkg")
+    table, out = run(tmp_path, outdir, zones, units_path=units, units_id_field="parcel",
+                     points_path=tmp_path / "p.gpkg", workers=workers)
     layers = dict(pyogrio.list_layers(out))
     assert layers == {"zones": "Polygon", "planning_units": "Polygon", "sinkholes": "Point"}
     points = gpd.read_file(out, layer="sinkholes").set_index("name")
@@ -410,3 +416,24 @@ def test_cli_refuses_existing_output_and_missing_map(tmp_path, smooth):
     (outdir / "hazard_class.tif").unlink()
     result = CliRunner().invoke(cli_app(), args + ["--overwrite"])
     assert result.exit_code == 1 and "missing hazard_class.tif" in result.stderr
+
+
+def test_strips_and_process_pool_equal_one_strip(tmp_path, smooth, monkeypatch):
+    import denude.execution.summaries as summaries
+
+    outdir, _ = smooth
+    geoms = np.array([jagged(X0 + 25_000, Y0 - 20_000, 15_000, seed=s) for s in range(3)], dtype=object)
+    whole = zone_partials(outdir, geoms, workers=1).finalize()
+    monkeypatch.setattr(summaries, "STRIP_CELLS", 16 * 50)      # 16-row strips: 3 strips
+    datasets, grid = summaries._open_outdir(outdir)
+    assert len(summaries.strip_plan(grid, datasets[summaries.RATE_TIF])) == 3
+    for ds in datasets.values():
+        ds.close()
+    for workers in (1, 2):
+        got = zone_partials(outdir, geoms, workers=workers).finalize()
+        for name, values in whole.items():
+            if values.dtype == object:
+                assert list(got[name]) == list(values)
+            else:
+                # analytic: partial sums add; only float rounding of the sums differs
+                np.testing.assert_allclose(got[name], values, rtol=1e-12, equal_nan=True)

@@ -60,6 +60,7 @@ COLUMN_UNITS = {
     "denudation_p90_mm_per_kyr": "mm/kyr", "rock_volume_m3_per_yr": "m3/yr",
     "rock_mass_t_per_yr": "t/yr", "co2_drawdown_t_per_yr": "t/yr",
     "hazard_area_km2_*": "km2", "hazard_share_*": "1", "hazard_max_class": "class index (-1 none)",
+    "hazard_max_name": "class name",
     "dominant_rock": "rock name", "dominant_rock_share": "1", "sinkhole_count": "points",
     "sinkhole_density_per_km2": "1/km2", "sinkhole_mean_rate_mm_per_kyr": "mm/kyr",
     "sinkhole_rate_ratio": "1", "denudation_mm_per_kyr": "mm/kyr",
@@ -121,6 +122,7 @@ class _GridSource:
             def __init__(self, extent, nx, ny):
                 super().__init__()
                 self._extent, self._nx, self._ny = extent, nx, ny
+                self._zeros = np.zeros(0, np.uint8)   # never written: windows are views of it
 
             def res(self):
                 e = self._extent
@@ -136,7 +138,9 @@ class _GridSource:
                 return None
 
             def read_window(self, x0, y0, nx, ny):
-                return np.zeros((ny, nx), dtype=np.uint8)
+                if self._zeros.size < nx * ny:
+                    self._zeros = np.zeros(max(nx * ny, 2 * self._zeros.size), np.uint8)
+                return self._zeros[: nx * ny].reshape(ny, nx)
 
         return GridOnlySource(*args, **kwargs)
 
@@ -184,16 +188,30 @@ def coverage_pairs(extent, nx, ny, wkbs, index):
     (row-major in the grid) and coverage fraction [0-1], grouped by zone in input order."""
     from exactextract import exact_extract
 
-    result = exact_extract(
-        _GridSource(extent, nx, ny), _features(wkbs, index), ["cell_id", "coverage"], output="pandas"
-    )
-    cells = list(result["cell_id"])
-    covs = list(result["coverage"])
+    from exactextract.feature import JSONFeature
+    from exactextract.writer import Writer
+
+    cells, covs = [], []
+
+    class ArrayWriter(Writer):
+        """Collects the cell_id and coverage arrays of each feature, in order."""
+
+        def write(self, feature):
+            f = JSONFeature()
+            feature.copy_to(f)
+            props = f.feature["properties"]
+            cells.append(props["cell_id"])
+            covs.append(props["coverage"])
+
+        def features(self):
+            return None
+
+    exact_extract(_GridSource(extent, nx, ny), _features(wkbs, index), ["cell_id", "coverage"], output=ArrayWriter())
     lengths = np.fromiter((len(c) for c in cells), np.int64, len(cells))
     if lengths.sum() == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.float64)
     zone = np.repeat(np.asarray(index, np.int64), lengths)
-    return zone, np.concatenate(cells).astype(np.int64), np.concatenate(covs).astype(np.float64)
+    return zone, np.concatenate(cells).astype(np.int64, copy=False), np.concatenate(covs).astype(np.float64, copy=False)
 
 
 # -- inputs -------------------------------------------------------------------------------
@@ -290,7 +308,7 @@ def _prepare(name, layer, n_classes, n_rocks, grid):
     return _ZoneSet(name, layer, wkbs, bounds, inside, ZonalAccumulator(len(geoms), n_classes, n_rocks))
 
 
-def zone_partials(outdir, geometries, progress=None) -> ZonalAccumulator:
+def zone_partials(outdir, geometries, progress=None, workers: Optional[int] = 1) -> ZonalAccumulator:
     """Partial sums over ``geometries`` (shapely polygons in the raster CRS) of one map
     output folder, e.g. one tile of a batch: merge the results of several tiles with
     ``ZonalAccumulator.merge`` and call ``finalize``."""
@@ -303,7 +321,7 @@ def zone_partials(outdir, geometries, progress=None) -> ZonalAccumulator:
         n_classes = len(hazard_class_names(datasets[HAZARD_TIF]))
         layer = _Geoms(np.asarray(geometries, dtype=object))
         zs = _prepare("zones", layer, n_classes, len(lookup.codes), grid)
-        _run_strips(datasets, grid, cell_areas_km2(grid)[0], [zs], lookup, None, None, progress)
+        _accumulate_strips(outdir, datasets, grid, cell_areas_km2(grid)[0], [zs], lookup, None, None, progress, workers)
         return zs.acc
     finally:
         for ds in datasets.values():
@@ -334,11 +352,13 @@ def summarize_outputs(
     out_path="summary.gpkg",
     overwrite: bool = False,
     progress: Optional[Callable[[int, int], None]] = None,
+    workers: Optional[int] = None,
 ) -> dict:
     """Summarise a ``denude map`` output folder over zones, optional planning units and
     sinkhole points, and write ``out_path`` (GeoPackage), CSV twins and a
     ``<stem>.summary.json`` sidecar (provenance, method, units). ``progress(done, total)``
-    is called with rows of the grid done. Returns the sidecar content as a dict."""
+    is called with rows of the grid done. ``workers``: processes (None: ``default_workers``;
+    1: in this process). Returns the sidecar content as a dict."""
     from denude.io.rock_csv import read_rock_table
     from denude.io.vectors import check_output_path, read_points, read_polygons, write_layers
 
@@ -359,7 +379,7 @@ def summarize_outputs(
     datasets, grid = _open_outdir(outdir)
     hasher = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     try:
-        input_files = [outdir / n for n in REQUIRED_FILES]
+        input_files = [outdir / n for n in REQUIRED_FILES + ("run.json",) if (outdir / n).is_file()]
         for p in (zones_path, units_path, points_path):
             if p is not None and Path(p).exists():
                 input_files += _vector_files(Path(p))
@@ -403,7 +423,8 @@ def summarize_outputs(
             ok = np.isfinite(col) & np.isfinite(row) & (col >= 0) & (col < grid.width) & (row >= 0) & (row < grid.height)
             point_rc = (np.where(ok, row, -1).astype(np.int64), np.where(ok, col, -1).astype(np.int64))
 
-        _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values if points is not None else None, progress)
+        _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc,
+                    point_values if points is not None else None, progress, workers)
 
         tables = {}
         for zs in sets:
@@ -470,22 +491,26 @@ def summarize_outputs(
             ds.close()
 
 
-def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress):
-    """The single pass over the rasters, strip by strip, feeding every zone set's accumulator."""
+def strip_plan(grid: Grid, dataset) -> list[tuple[int, int]]:
+    """Row ranges [r0, r1) of the strips the grid is read in (whole blocks, ~STRIP_CELLS cells)."""
+    rows_per = _strip_rows(dataset, grid.width)
+    return [(r0, min(grid.height, r0 + rows_per)) for r0 in range(0, grid.height, rows_per)]
+
+
+def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress, strips=None):
+    """The single pass over the rasters, strip by strip, feeding every zone set's accumulator.
+    The next strip is read on a background thread while the current one is summed.
+    ``progress(rows, total)`` is called with the rows of each finished strip."""
     from rasterio.windows import Window
 
-    ref = datasets[RATE_TIF]
-    rows_per = _strip_rows(ref, grid.width)
+    strips = strip_plan(grid, datasets[RATE_TIF]) if strips is None else strips
     t = grid.transform
     xmin, _, xmax, _ = grid.bounds
     planar = bool(np.all(areas_row == areas_row[0]))
-    density_by_row = lookup.density_g_cm3
-    done = 0
-    if progress:
-        progress(0, grid.height)
-    for r0 in range(0, grid.height, rows_per):
-        r1 = min(grid.height, r0 + rows_per)
-        ny = r1 - r0
+    names = (RATE_TIF, HAZARD_TIF, LITHOLOGY_TIF, CO2_TIF, SOLUBLE_TIF)
+
+    plan = []
+    for r0, r1 in strips:
         ytop, ybot = t.f + r0 * t.e, t.f + r1 * t.e
         picks = []
         for zs in sets:
@@ -493,37 +518,119 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
             sel = np.flatnonzero(zs.nonempty & (b[:, 1] < ytop) & (b[:, 3] > ybot))
             if sel.size:
                 picks.append((zs, sel))
-        pts = None
+        pts = np.zeros(0, np.int64)
         if point_rc is not None:
             pts = np.flatnonzero((point_rc[0] >= r0) & (point_rc[0] < r1))
-        if picks or (pts is not None and pts.size):
-            window = Window(0, r0, grid.width, ny)
-            rate = ref.read(1, window=window).ravel()
-            hazard = datasets[HAZARD_TIF].read(1, window=window).ravel()
-            litho = datasets[LITHOLOGY_TIF].read(1, window=window).ravel()
-            rock_row = lookup.row_index(litho)
-            if pts is not None and pts.size:
+        plan.append((r0, r1, ytop, ybot, picks, pts))
+
+    def read(item):
+        r0, r1, _, _, picks, pts = item
+        if not picks and not pts.size:
+            return None
+        window = Window(0, r0, grid.width, r1 - r0)
+        wanted = names if picks else names[:3]
+        return {name: datasets[name].read(1, window=window).ravel() for name in wanted}
+
+    def accumulate(zs, pairs, row_area, data):
+        zone, cell, cov = pairs
+        zs.acc.add_cells(
+            zone, cell, cov, row_area, grid.width, data[RATE_TIF],
+            soluble_fraction=data[SOLUBLE_TIF], co2_t_per_km2_yr=data[CO2_TIF],
+            hazard_class=data[HAZARD_TIF], lithology_code=data[LITHOLOGY_TIF],
+            rock_codes=lookup.codes, rock_density_g_cm3=lookup.density_g_cm3,
+        )
+
+    # exactextract holds the GIL; reading (rasterio) and summing (numba, nogil) run beside it
+    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as reader, \
+            concurrent.futures.ThreadPoolExecutor(max_workers=1) as summer:
+        pending = reader.submit(read, plan[0]) if plan else None
+        summing = None
+        for k, item in enumerate(plan):
+            data = pending.result()
+            pending = reader.submit(read, plan[k + 1]) if k + 1 < len(plan) else None
+            r0, r1, ytop, ybot, picks, pts = item
+            if data is not None and pts.size:
                 flat = (point_rc[0][pts] - r0) * grid.width + point_rc[1][pts]
-                point_values["rate"][pts] = rate[flat]
-                point_values["hazard"][pts] = hazard[flat]
-                point_values["rock"][pts] = rock_row[flat]
-        if picks:
-            co2 = datasets[CO2_TIF].read(1, window=window).ravel()
-            soluble = datasets[SOLUBLE_TIF].read(1, window=window).ravel()
-            extent = (xmin, ybot, xmax, ytop)
+                point_values["rate"][pts] = data[RATE_TIF][flat]
+                point_values["hazard"][pts] = data[HAZARD_TIF][flat]
+                point_values["rock"][pts] = lookup.row_index(data[LITHOLOGY_TIF][flat])
+            row_area = areas_row[:1] if planar else areas_row[r0:r1]
             for zs, sel in picks:
-                zone, cell, cov = coverage_pairs(extent, grid.width, ny, zs.wkbs[sel], sel)
-                if zone.size == 0:
-                    continue
-                weight = cov * (areas_row[r0] if planar else areas_row[r0 + cell // grid.width])
-                rr = rock_row[cell]
-                density = np.where(rr >= 0, density_by_row[np.maximum(rr, 0)], np.nan)
-                zs.acc.add(zone, weight, rate[cell], soluble_fraction=soluble[cell],
-                           co2_t_per_km2_yr=co2[cell], density_g_cm3=density,
-                           hazard_class=hazard[cell], rock_index=rr)
-        done = r1
-        if progress:
-            progress(done, grid.height)
+                pairs = coverage_pairs((xmin, ybot, xmax, ytop), grid.width, r1 - r0, zs.wkbs[sel], sel)
+                if summing is not None:
+                    summing.result()          # one block of pairs in flight bounds the memory
+                summing = summer.submit(accumulate, zs, pairs, row_area, data)
+            if progress:
+                progress(r1 - r0, grid.height)
+        if summing is not None:
+            summing.result()
+
+
+def _worker(outdir, strips, payload, point_rc):
+    """Process-pool task: summarise some strips of a map folder; return accumulator states
+    (one per zone set) and the point samples taken in those strips."""
+    from denude.io.rock_csv import read_rock_table
+
+    datasets, grid = _open_outdir(Path(outdir))
+    try:
+        lookup = read_rock_table(Path(outdir) / ROCKS_CSV).lookup()
+        sets = [_ZoneSet(name, None, wkbs, bounds, nonempty, ZonalAccumulator(len(wkbs), n_classes, n_rocks))
+                for name, wkbs, bounds, nonempty, n_classes, n_rocks in payload]
+        values = None
+        if point_rc is not None:
+            n = point_rc[0].size
+            values = {"rate": np.full(n, np.nan), "hazard": np.full(n, HAZARD_NODATA, np.int64),
+                      "rock": np.full(n, -1, np.int64)}
+        _run_strips(datasets, grid, cell_areas_km2(grid)[0], sets, lookup, point_rc, values, None, strips)
+        return [zs.acc.state() for zs in sets], values
+    finally:
+        for ds in datasets.values():
+            ds.close()
+
+
+def default_workers(n_strips: int) -> int:
+    """Processes for a run: 1 for small grids (< 4 strips), else the CPU count, at most 4."""
+    return 1 if n_strips < 4 else max(1, min(4, os.cpu_count() or 1))
+
+
+def _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress, workers):
+    """Run the strips in this process (workers <= 1) or spread over a process pool, merging
+    the partial sums of every worker (the same merge a tiled batch uses)."""
+    strips = strip_plan(grid, datasets[RATE_TIF])
+    workers = default_workers(len(strips)) if workers is None else int(workers)
+    if progress:
+        progress(0, grid.height)
+    if workers <= 1 or len(strips) < 2:
+        done = [0]
+
+        def counted(rows, total):
+            done[0] += rows
+            progress(done[0], total)
+
+        _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
+                    counted if progress else None, strips)
+        return
+    import multiprocessing
+
+    n_chunks = min(len(strips), 2 * workers)
+    chunks = [list(c) for c in np.array_split(np.arange(len(strips)), n_chunks)]
+    payload = [(zs.name, zs.wkbs, zs.bounds, zs.nonempty, zs.acc.n_classes, zs.acc.n_rocks) for zs in sets]
+    done = 0
+    context = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
+        futures = {pool.submit(_worker, str(outdir), [strips[i] for i in chunk], payload, point_rc):
+                   sum(strips[i][1] - strips[i][0] for i in chunk) for chunk in chunks}
+        for future in concurrent.futures.as_completed(futures):
+            states, values = future.result()
+            for zs, state in zip(sets, states):
+                zs.acc.merge(ZonalAccumulator.from_state(state))
+            if values is not None:
+                got = ~np.isnan(values["rate"]) | (values["hazard"] != HAZARD_NODATA) | (values["rock"] >= 0)
+                for key in point_values:
+                    point_values[key][got] = values[key][got]
+            done += futures[future]
+            if progress:
+                progress(done, grid.height)
 
 
 def _table(layer, cols, class_names, area_method):
