@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import shutil
 import tempfile
 import time
@@ -58,6 +59,12 @@ def make_region(folder: Path, side: int, seed: int = 3) -> dict:
     return paths
 
 
+def tile_seconds(out: Path) -> float:
+    """Sum of the per-tile compute times recorded in the manifest [s]."""
+    tiles = json.loads((out / "manifest.json").read_text())["tiles"]
+    return sum(v.get("wall_time_s", 0.0) for v in tiles.values())
+
+
 def tile_hashes(out: Path) -> dict:
     tiles = json.loads((out / "manifest.json").read_text())["tiles"]
     return {k: {n: o["sha256"] for n, o in v["outputs"].items()} for k, v in tiles.items()}
@@ -74,6 +81,7 @@ def main() -> None:
     side = 4 * args.tile
     root = Path(tempfile.mkdtemp(prefix="denude-bench-batch-"))
     try:
+        load0 = os.getloadavg()
         t0 = time.perf_counter()
         paths = make_region(root, side)
         print(f"region {side} x {side} cells ({side * side / 1e6:.1f} Mcells), 16 tiles of {args.tile}^2; "
@@ -100,11 +108,13 @@ def main() -> None:
                     assert summary.ok, summary.tiles_failed
                     best[name] = min(best[name], elapsed)
                     hashes[name] = tile_hashes(out)
-                    print(f"  round {r + 1} {name:<10} {elapsed:7.2f} s  ({side * side / elapsed / 1e6:.1f} Mcells/s)")
+                    print(f"  round {r + 1} {name:<10} {elapsed:7.2f} s  ({side * side / elapsed / 1e6:.1f} Mcells/s, "
+                          f"sum of tile times {tile_seconds(out):.1f} s)")
                     shutil.rmtree(out)
         finally:
             cluster.close()
         one, many, clus = best["local-1"], best[f"local-{args.workers}"], best[f"cluster-{args.workers}"]
+        print(f"load average before/after (other processes share the cores): {load0} / {os.getloadavg()}")
         print(f"best: 1 worker {one:.2f} s, {args.workers} workers {many:.2f} s, cluster {clus:.2f} s")
         print(f"speed-up {args.workers} local workers vs 1: {one / many:.2f}x (target >= 1.7x on 2 cores)")
         print(f"cluster overhead vs local pool ({args.workers} workers): {100 * (clus / many - 1):+.1f} % (target <= 15 %)")

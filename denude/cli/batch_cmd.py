@@ -144,7 +144,6 @@ def _progress(quiet: bool):
 @handle_user_errors
 def _batch_body(**kwargs):
     from denude.execution.batch import ZoneSpec, run_batch
-    from denude.execution.tiling import make_tiles
 
     own = {k: kwargs.pop(k) for k in ("dry_run", "quiet", "tile_size", "scheduler", "retries", "retry_failed",
                                        "merge", "zones", "zones_layer", "zones_id_field", "workers")}

@@ -17,7 +17,6 @@ Values equal a whole-region `denude map` run bit for bit: each cell is computed 
 
 from __future__ import annotations
 
-import hashlib
 import io
 import json
 import os
@@ -106,9 +105,6 @@ def _fsync_file(path) -> None:
 def _one_line(exc: BaseException) -> str:
     text = " ".join(str(exc).split())
     return text or type(exc).__name__
-
-
-_PLAUSIBLE_CACHE: dict = {}
 
 
 def _check_plausible(role: str, path: str, values: np.ndarray, settings: MapSettings, tile_id: str) -> None:
@@ -505,7 +501,6 @@ def _zone_summary(out: Path, tiles: list[Tile], zones: ZoneSpec, grid: Grid, set
     import pandas
 
     from denude.execution.raster_job import load_rocks
-    from denude.execution.summaries import COLUMN_UNITS  # noqa: F401  (documents the units)
 
     acc = None
     for t in tiles:

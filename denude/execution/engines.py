@@ -42,14 +42,17 @@ def check_workers(workers) -> int:
     return workers
 
 
-def limit_threads(threads: int = 1) -> None:
-    """Keep one task from using more than ``threads`` cores (numba kernel threads)."""
+def limit_threads(threads: int = 1) -> int | None:
+    """Keep one task from using more than ``threads`` cores (numba kernel threads); returns
+    the previous setting (for ``limit_threads(previous)``), or None without numba."""
     try:
         import numba
 
+        previous = numba.get_num_threads()
         numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
-    except Exception:  # pragma: no cover - numba missing or already limited
-        pass
+        return previous
+    except Exception:  # pragma: no cover - numba missing
+        return None
 
 
 def _init_worker() -> None:
@@ -165,7 +168,7 @@ class DaskEngine:
 
     name = "dask"
 
-    def __init__(self, address, connect_timeout_s: float = 20.0):
+    def __init__(self, address, connect_timeout_s: float = 10.0):
         self.address = address
         self.connect_timeout_s = connect_timeout_s
         self.client = None
