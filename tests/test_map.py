@@ -13,6 +13,7 @@ import rasterio
 from rasterio.transform import from_origin
 
 import denude
+import denude.errors
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_COLOURS, classify
 from denude.core.kernel import compute_block
 from denude.core.rocks import RockTable
@@ -244,3 +245,23 @@ def test_overwrite_replaces_the_folder(map_inputs, tmp_path):
     run_map(settings_for(map_inputs, out, overwrite=True))
     assert not (out / "old.txt").exists() and (out / "run.json").exists()
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
+
+
+@pytest.mark.parametrize("problem", ["code", "value"])
+def test_problems_found_during_the_run_leave_nothing(map_inputs, make_raster, tmp_path, problem):
+    """A run samples inputs up front and checks every window as it goes: a bad cell deep
+    inside a raster (missed by the sample) still stops the run with nothing written."""
+    codes = map_inputs["codes"].copy()
+    runoff = map_inputs["runoff"].copy()
+    if problem == "code":
+        codes[37, 50] = 77
+    else:
+        runoff[37, 50] = 99999.0
+    lith = make_raster("lith2.tif", codes, nodata=-1)
+    run = make_raster("run2.tif", runoff, nodata=-9999.0)
+    out = tmp_path / "out"
+    settings = settings_for(map_inputs, out, lithology=str(lith), runoff=str(run))
+    with pytest.raises(denude.errors.InputError) as info:
+        run_map(settings)
+    assert ("77" in str(info.value)) if problem == "code" else ("99999" in str(info.value))
+    assert not out.exists() and not list(tmp_path.glob(".out.*"))

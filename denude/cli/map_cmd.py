@@ -14,7 +14,7 @@ from typing import Annotated, Optional
 import typer
 
 from denude.cli.common import CAUTION, handle_user_errors
-from denude.execution.raster_job import inspect_job, run_map
+from denude.execution.raster_job import inspect_job, limit_malloc_arenas, run_map
 from denude.io.jobfile import LAYERS, build_settings
 from denude.reports.provenance import check_lines, summary_lines
 
@@ -108,6 +108,7 @@ def _map_body(**kwargs):
                 typer.echo(line)
             typer.echo("dry run: all checks passed, nothing written")
         return
+    limit_malloc_arenas()
     bar = _progress_bar(own["quiet"])
     if bar is None:
         summary = run_map(settings)

@@ -247,12 +247,15 @@ def _dest_nodata(plan: WarpPlan):
 
 def _mark_nodata(plan: WarpPlan, data: np.ndarray, src_nodata) -> np.ndarray:
     """Cast a directly read block to the destination dtype with destination nodata."""
-    out = data.astype(_dest_dtype(plan))
-    if src_nodata is not None:
+    if plan.categorical and data.dtype.kind == "f":
+        bad = ~np.isfinite(data)
+        out = np.where(bad, 0, data).astype(np.int32)
+        out[bad] = INT32_NODATA
+    else:
+        out = data.astype(_dest_dtype(plan))
+    if src_nodata is not None and not math.isnan(src_nodata):
         if plan.categorical:
             out[data == src_nodata] = INT32_NODATA
-        elif math.isnan(src_nodata):
-            pass
         else:
             out[data == src_nodata] = np.nan
     return out
@@ -344,6 +347,23 @@ def value_range(path, role: str, max_side: int = 1024) -> tuple[float, float, in
     return (float(values.min()), float(values.max()), int(values.size))
 
 
+def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 64) -> tuple[float, float, int]:
+    """(min, max, valid cells) from a lattice of small windows (a quick look before a run;
+    `value_range` reads every tile). Nodata and NaN excluded."""
+    lo, hi, n = math.inf, -math.inf, 0
+    with open_raster(path, role) as ds:
+        for i in range(samples_per_side):
+            for j in range(samples_per_side):
+                h, w = min(side, ds.height), min(side, ds.width)
+                row = (ds.height - h) * i // max(samples_per_side - 1, 1)
+                col = (ds.width - w) * j // max(samples_per_side - 1, 1)
+                data = ds.read(1, window=Window(col, row, w, h), masked=True)
+                values = np.ma.masked_invalid(data.astype(np.float64)).compressed()
+                if values.size:
+                    lo, hi, n = min(lo, float(values.min())), max(hi, float(values.max())), n + values.size
+    return (lo, hi, n) if n else (math.nan, math.nan, 0)
+
+
 def unique_codes(path, role: str = "lithology") -> list[int]:
     """Every code in band 1, read block by block (nodata excluded). Non-integer values are an error."""
     found: set[int] = set()
@@ -424,6 +444,11 @@ def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
     }
 
 
+#: At most this many outputs build overviews / COG copies at the same time (each holds its own
+#: buffers); the others wait. Two matches the project's two cores.
+FINISH_SLOTS = threading.BoundedSemaphore(2)
+
+
 class RasterWriter:
     """Writes one output raster window by window, then adds overviews (and the COG layout).
 
@@ -486,7 +511,8 @@ class RasterWriter:
                     break
                 array, window = item
                 self.dataset.write(array.astype(self.spec.dtype, copy=False), 1, window=window)
-            self._finish_file()
+            with FINISH_SLOTS:
+                self._finish_file()
         except BaseException as exc:  # handed to the caller in close()
             self._error = exc
             try:
