@@ -346,3 +346,17 @@ def test_job_file_batch_table(region, tmp_path):
     job.write_text(job.read_text().replace("retries", "retrys"))
     bad = CliRunner().invoke(app, ["batch", "--job", str(job)])
     assert bad.exit_code == 1 and "did you mean 'retries'" in bad.stderr
+
+
+def test_bad_zone_field_fails_before_any_tile(region, tmp_path):
+    gpd = pytest.importorskip("geopandas")
+    shapely = pytest.importorskip("shapely")
+    from denude.errors import ZoneError
+
+    path = tmp_path / "zones.gpkg"
+    gpd.GeoDataFrame({"wid": ["a"]}, geometry=[shapely.box(400100, 5194000, 402000, 5199000)], crs=CRS).to_file(
+        path, layer="zones", engine="pyogrio")
+    out = tmp_path / "zbad"
+    with pytest.raises(ZoneError, match="no field 'basin'"):
+        run_batch(settings_for(region["paths"], out), TILE, workers=0, zones=ZoneSpec(str(path), None, "basin"))
+    assert not (out / TILES_DIR).exists() or not any((out / TILES_DIR).iterdir())

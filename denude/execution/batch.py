@@ -576,6 +576,8 @@ def run_batch(
                 grid, _ = _preflight(resolved)
         else:
             grid, _ = _preflight(resolved)
+        if zones is not None:
+            _zone_geometries(zones, grid.crs_wkt)          # bad zone files fail here, not per tile
         tiles = make_tiles(grid, size)
         return BatchSummary(str(out), grid, size, len(tiles), 0, 0, {}, [], "dry run", None, {}, 0.0)
 
@@ -584,6 +586,8 @@ def run_batch(
     with _Lock(out):
         resolved = resolve_inputs(settings, out)
         grid, plan = _preflight(resolved)
+        if zones is not None:
+            _zone_geometries(zones, grid.crs_wkt)          # bad zone files fail here, not per tile
         tiles = make_tiles(grid, size)
         if manifest is None:
             manifest = Manifest.new(out, key, size, grid.as_dict(), layers)
