@@ -265,3 +265,34 @@ def test_problems_found_during_the_run_leave_nothing(map_inputs, make_raster, tm
         run_map(settings)
     assert ("77" in str(info.value)) if problem == "code" else ("99999" in str(info.value))
     assert not out.exists() and not list(tmp_path.glob(".out.*"))
+
+
+def test_explicit_and_like_grids_resample_by_kind(map_inputs, make_raster, tmp_path):
+    """A coarser target grid (300 m over 100 m inputs): mode for codes, average for fields."""
+    out = tmp_path / "coarse"
+    settings = settings_for(map_inputs, out, grid_crs="EPSG:32632", grid_resolution=[300.0],
+                            grid_bounds=[400000.0, 5196100.0, 405400.0, 5200000.0], block_size=16)
+    summary = run_map(settings)
+    assert (summary.grid.width, summary.grid.height) == (18, 13)      # 5400/300, 3900/300
+    record = json.loads((out / "run.json").read_text())
+    assert record["inputs"]["lithology"]["resampling"] == "mode"
+    assert record["inputs"]["runoff"]["resampling"] == "average"
+    codes = read(out, "lithology_code.tif")
+    assert set(np.unique(codes).tolist()) <= {0, 1, 2, 3, 4, 5, INT32_NODATA}
+    # the same grid given as a raster
+    like = make_raster("like.tif", np.zeros((13, 18), np.uint8), res=300.0)
+    out2 = tmp_path / "like"
+    run_map(settings_for(map_inputs, out2, grid_like=str(like)))
+    for name in FILES:
+        assert_same(read(out2, name), read(out, name))
+
+
+def test_log10_pco2_units(map_inputs, make_raster, tmp_path):
+    log_pco2 = np.log10(map_inputs["pco2"].astype(np.float64)).astype(np.float32)
+    out = tmp_path / "out"
+    run_map(settings_for(map_inputs, out, pco2=str(make_raster("logp.tif", log_pco2)), pco2_units="log10atm"))
+    codes = map_inputs["codes"]
+    runoff = np.where(map_inputs["runoff"] == -9999.0, np.nan, map_inputs["runoff"])
+    exp = compute_block(codes.astype(np.int32), f64(runoff), 10.0 ** f64(log_pco2), f64(map_inputs["temperature"]),
+                        RockTable.builtin().lookup(), lithology_valid=codes != -1, warn=False)
+    assert_same(read(out, "denudation_mm_per_kyr.tif"), exp.denudation_mm_per_kyr)
