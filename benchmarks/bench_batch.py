@@ -87,8 +87,10 @@ def main() -> None:
         print(f"region {side} x {side} cells ({side * side / 1e6:.1f} Mcells), 16 tiles of {args.tile}^2; "
               f"inputs written in {time.perf_counter() - t0:.1f} s")
         settings = build_settings(dict(paths, out=str(root / "warm"), block_size=512))
-        # warm-up: numba cache and GDAL, outside the timings
-        run_batch(settings.replace(out=str(root / "warm")), args.tile, workers=0)
+        # warm-up on a small region: numba cache and GDAL, outside the timings
+        (root / "small").mkdir()
+        small = build_settings(dict(make_region(root / "small", 512), out=str(root / "warm"), block_size=512))
+        run_batch(small, 256, workers=0)
         shutil.rmtree(root / "warm")
 
         start = time.perf_counter()
