@@ -38,7 +38,7 @@ def check_workers(workers) -> int:
     if workers is None:
         return available_cores()
     if isinstance(workers, bool) or not isinstance(workers, int) or not (0 <= workers <= 1024):
-        raise EngineError(f"workers {workers!r} must be an integer from 1 to 1024; e.g. --workers {available_cores()}")
+        raise EngineError(f"workers {workers!r} must be an integer from 1 to 1024 (0 = in this process); e.g. --workers {available_cores()}")
     return workers
 
 
