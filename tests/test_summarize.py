@@ -437,3 +437,17 @@ def test_strips_and_process_pool_equal_one_strip(tmp_path, smooth, monkeypatch):
             else:
                 # analytic: partial sums add; only float rounding of the sums differs
                 np.testing.assert_allclose(got[name], values, rtol=1e-12, equal_nan=True)
+
+
+def test_feature_id_field_and_layer_choice(tmp_path, smooth):
+    outdir, _ = smooth
+    path = tmp_path / "two.gpkg"
+    write_zones(path, [cell_box(1, 1, 5, 5)], layer="sheds")
+    write_zones(path, [cell_box(2, 2, 6, 6), cell_box(7, 7, 9, 9)], layer="subsheds")
+    with pytest.raises(Exception, match="has 2 layers"):
+        summarize_outputs(outdir, path, out_path=tmp_path / "a.gpkg")
+    summarize_outputs(outdir, path, layer="subsheds", id_field="fid", out_path=tmp_path / "b.gpkg")
+    table = pd.read_csv(tmp_path / "b.csv")
+    assert table["fid"].tolist() == [1, 2]                       # GeoPackage feature ids
+    assert table["area_km2"].tolist() == pytest.approx([16.0, 4.0])  # analytic: 4 x 4 and 2 x 2 cells
+    assert dict(pyogrio.list_layers(tmp_path / "b.gpkg"))["subsheds"] == "Polygon"

@@ -42,7 +42,7 @@ def summarize(
     units_id_field: Annotated[Optional[str], typer.Option(help="Planning-unit id field.")] = None,
     points: Annotated[Optional[Path], typer.Option(help="Sinkhole points: sampled and counted per zone (layer sinkholes).", exists=True, dir_okay=False)] = None,
     points_layer: Annotated[Optional[str], typer.Option(help="Layer of the sinkhole file.")] = None,
-    workers: Annotated[Optional[int], typer.Option(min=1, help="Processes (default: 1 for small grids, else the CPU count, at most 4).")] = None,
+    workers: Annotated[Optional[int], typer.Option(min=1, help="Processes (default: 1 for small grids or fewer than 4 CPUs, else half the CPUs, at most 4).")] = None,
     overwrite: Annotated[bool, typer.Option(help="Replace existing outputs.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar and no summary lines.")] = False,
 ):

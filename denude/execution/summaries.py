@@ -589,8 +589,10 @@ def _worker(outdir, strips, payload, point_rc):
 
 
 def default_workers(n_strips: int) -> int:
-    """Processes for a run: 1 for small grids (< 4 strips), else the CPU count, at most 4."""
-    return 1 if n_strips < 4 else max(1, min(4, os.cpu_count() or 1))
+    """Processes for a run: 1 for small grids (< 4 strips) or machines with < 4 CPUs (one
+    process already sums on a second thread beside exactextract), else half the CPUs, at most 4."""
+    cpus = os.cpu_count() or 1
+    return 1 if n_strips < 4 or cpus < 4 else min(4, cpus // 2)
 
 
 def _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress, workers):
@@ -612,7 +614,7 @@ def _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc
         return
     import multiprocessing
 
-    n_chunks = min(len(strips), 2 * workers)
+    n_chunks = min(len(strips), workers)
     chunks = [list(c) for c in np.array_split(np.arange(len(strips)), n_chunks)]
     payload = [(zs.name, zs.wkbs, zs.bounds, zs.nonempty, zs.acc.n_classes, zs.acc.n_rocks) for zs in sets]
     done = 0

@@ -126,6 +126,9 @@ def read_polygons(path, layer=None, id_field=None, target_crs=None, what="zone")
             raise ZoneError(f"{path}: layer {layer!r} already has a column {id_field!r}; name it as the id field")
         frame = frame.copy()
         frame.insert(0, id_field, frame.index.to_numpy())
+    elif id_field not in frame.columns and id_field == frame.index.name:   # e.g. the GeoPackage "fid"
+        frame = frame.copy()
+        frame.insert(0, id_field, frame.index.to_numpy())
     elif id_field not in frame.columns or id_field == frame.geometry.name:
         fields = [c for c in frame.columns if c != frame.geometry.name]
         raise ZoneError(
