@@ -418,7 +418,7 @@ def test_cli_refuses_existing_output_and_missing_map(tmp_path, smooth):
     assert result.exit_code == 1 and "missing hazard_class.tif" in result.stderr
 
 
-def test_strips_and_process_pool_equal_one_strip(tmp_path, smooth, monkeypatch):
+def test_strips_equal_one_strip(tmp_path, smooth, monkeypatch):
     import denude.execution.summaries as summaries
 
     outdir, _ = smooth
@@ -429,14 +429,13 @@ def test_strips_and_process_pool_equal_one_strip(tmp_path, smooth, monkeypatch):
     assert len(summaries.strip_plan(grid, datasets[summaries.RATE_TIF])) == 3
     for ds in datasets.values():
         ds.close()
-    for workers in (1, 2):
-        got = zone_partials(outdir, geoms, workers=workers).finalize()
-        for name, values in whole.items():
-            if values.dtype == object:
-                assert list(got[name]) == list(values)
-            else:
-                # analytic: partial sums add; only float rounding of the sums differs
-                np.testing.assert_allclose(got[name], values, rtol=1e-12, equal_nan=True)
+    got = zone_partials(outdir, geoms, workers=1).finalize()   # the process pool: see the sinkhole test
+    for name, values in whole.items():
+        if values.dtype == object:
+            assert list(got[name]) == list(values)
+        else:
+            # analytic: partial sums add; only float rounding of the sums differs
+            np.testing.assert_allclose(got[name], values, rtol=1e-12, equal_nan=True)
 
 
 def test_feature_id_field_and_layer_choice(tmp_path, smooth):

@@ -1,4 +1,4 @@
-"""Per-zone partial sums of the denudation maps, mergeable across tiles. Pure numpy, no I/O.
+"""Per-zone partial sums of the denudation maps, mergeable across tiles. numpy and numba, no I/O.
 
 Every cell enters a zone with a weight ``w = coverage fraction x cell area [km2]``. The
 accumulator keeps, per zone, float64 sums that add exactly across blocks and tiles:
@@ -17,6 +17,11 @@ bin for rates >= 10000 mm/kyr. Inside a bin the weight is spread uniformly betwe
 edges clipped to the zone's exact min and max, so a percentile is within one bin width
 (0.35 % of the value, or 0.01 mm/kyr below 0.01 mm/kyr) of the exact weighted percentile,
 and exact for a zone of constant rate.
+
+The per-cell pass is one compiled loop (numba, releases the GIL) over (zone, cell) pairs;
+memory: n_zones x 4003 float64 for the histogram while that is at most 2**25 entries
+(256 MiB, i.e. up to ~8000 zones), else a sparse histogram (sorted keys) sized by the
+(zone, bin) pairs actually present.
 """
 
 from __future__ import annotations

@@ -13,6 +13,13 @@ Method, in one pass over the rasters:
 
 Cell counts (``valid_cells``, ``nodata_cells``) count whole cells with coverage > 0.
 ``area_km2`` is the zone's area on the raster grid (the part outside the grid is not counted).
+exactextract keeps coverage fractions in float32, so areas and sums over partly covered
+cells carry a relative error of about 1e-7 (totals over a partition are conserved to that).
+
+Hazard class names are read from the tags of ``hazard_class.tif`` (``class_names``: a JSON
+list or comma-separated names, class 0 first); without the tag the built-in names are used.
+Large grids can be spread over a process pool (``workers``); each process sums its strips
+and the partial sums are merged, exactly as a tiled batch merges its tiles.
 """
 
 from __future__ import annotations
@@ -44,7 +51,9 @@ ROCKS_CSV = "rocks.csv"
 REQUIRED_FILES = (RATE_TIF, CO2_TIF, HAZARD_TIF, LITHOLOGY_TIF, SOLUBLE_TIF, ROCKS_CSV)
 
 #: Target number of cells per strip (bounds the memory: about 60 bytes per cell).
-STRIP_CELLS = 1 << 22
+STRIP_CELLS = 1 << 21
+#: GDAL block cache while reading [MB]: every block is read once, so a cache only costs memory.
+GDAL_CACHE_MB = 64
 
 ZONES_LAYER = "zones"
 UNITS_LAYER = "planning_units"
@@ -360,7 +369,7 @@ def summarize_outputs(
     is called with rows of the grid done. ``workers``: processes (None: ``default_workers``;
     1: in this process). Returns the sidecar content as a dict."""
     from denude.io.rock_csv import read_rock_table
-    from denude.io.vectors import check_output_path, read_points, read_polygons, write_layers
+    from denude.io.vectors import check_output_path, read_points, read_polygons
 
     outdir = Path(outdir)
     out_path = check_output_path(out_path, [zones_path, units_path, points_path])
@@ -541,7 +550,10 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
         )
 
     # exactextract holds the GIL; reading (rasterio) and summing (numba, nogil) run beside it
-    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as reader, \
+    import rasterio
+
+    with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB), \
+            concurrent.futures.ThreadPoolExecutor(max_workers=1) as reader, \
             concurrent.futures.ThreadPoolExecutor(max_workers=1) as summer:
         pending = reader.submit(read, plan[0]) if plan else None
         summing = None
