@@ -61,7 +61,7 @@ _LOG_LOW = float(np.log10(RATE_BIN_LOW_MM_PER_KYR))
 _INV_LOG_STEP = float(RATE_LOG_BINS / (np.log10(RATE_BIN_HIGH_MM_PER_KYR) - np.log10(RATE_BIN_LOW_MM_PER_KYR)))
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def _rate_bin(r, edges, log_low, inv_step):
     """Histogram bin of one rate [mm/kyr] >= 0 (same rule as ``rate_bin_index``)."""
     if r <= 0.0:
@@ -83,79 +83,116 @@ def _rate_bin(r, edges, log_low, inv_step):
     return k + 2
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, litho, codes,
                 density_cell, density_rock, n_classes, n_rocks, edges, log_low, inv_step,
                 area, valid_area, soluble_area, s_wr, s_wr2, s_wrd, s_co2, vmin, vmax,
                 valid_cells, nodata_cells, class_area, rock_area, hist, bins):
-    """One pass over (zone, cell) pairs, adding into the accumulator arrays in place."""
+    """One pass over (zone, cell) pairs, adding into the accumulator arrays in place. Runs of
+    equal zone index (the usual order) are summed in local variables first."""
     dense = bins.size == 0
     n_codes = codes.size
-    for i in range(zone.size):
-        w = cov[i]
-        if not w > 0.0:
-            if not dense:
-                bins[i] = -1
-            continue
+    n = zone.size
+    per_row = row_area.size > 1
+    has_fraction = fraction.size > 0
+    has_co2 = co2.size > 0
+    has_hazard = hazard.size > 0
+    has_litho = litho.size > 0
+    has_dcell = density_cell.size > 0
+    has_drock = density_rock.size > 0
+    i = 0
+    while i < n:
         z = zone[i]
-        c = cell[i]
-        if row_area.size > 1:
-            w *= row_area[c // width]
-        else:
-            w *= row_area[0]
-        area[z] += w
-        if fraction.size:
-            f = fraction[c]
-            if f == f:
-                soluble_area[z] += w * f
-        if co2.size:
-            v = co2[c]
-            if v == v:
-                s_co2[z] += w * v
-        if hazard.size:
-            h = hazard[c]
-            if h >= 0 and h < n_classes:
-                class_area[z, h] += w
-        rk = -1
-        if litho.size:
-            code = litho[c]
-            lo, hi = 0, n_codes
-            while lo < hi:                      # binary search in the sorted rock codes
-                mid = (lo + hi) // 2
-                if codes[mid] < code:
-                    lo = mid + 1
-                else:
-                    hi = mid
-            if lo < n_codes and codes[lo] == code and lo < n_rocks:
-                rk = lo
-                rock_area[z, rk] += w
-        r = rate[c]
-        if r != r:
-            nodata_cells[z] += 1
-            if not dense:
-                bins[i] = -1
-            continue
-        valid_cells[z] += 1
-        valid_area[z] += w
-        wr = w * r
-        s_wr[z] += wr
-        s_wr2[z] += wr * r
-        d = np.nan
-        if density_cell.size:
-            d = density_cell[c]
-        elif density_rock.size and rk >= 0:
-            d = density_rock[rk]
-        if d == d:
-            s_wrd[z] += wr * d
-        if r < vmin[z]:
-            vmin[z] = r
-        if r > vmax[z]:
-            vmax[z] = r
-        b = _rate_bin(r, edges, log_low, inv_step)
-        if dense:
-            hist[z, b] += w
-        else:
-            bins[i] = b
+        t_area = 0.0
+        t_valid = 0.0
+        t_sol = 0.0
+        t_co2 = 0.0
+        t_wr = 0.0
+        t_wr2 = 0.0
+        t_wrd = 0.0
+        t_min = vmin[z]
+        t_max = vmax[z]
+        n_valid = 0
+        n_nodata = 0
+        while i < n and zone[i] == z:
+            w = cov[i]
+            if not w > 0.0:
+                if not dense:
+                    bins[i] = -1
+                i += 1
+                continue
+            c = cell[i]
+            if per_row:
+                w *= row_area[c // width]
+            else:
+                w *= row_area[0]
+            t_area += w
+            if has_fraction:
+                f = fraction[c]
+                if f == f:
+                    t_sol += w * f
+            if has_co2:
+                v = co2[c]
+                if v == v:
+                    t_co2 += w * v
+            if has_hazard:
+                h = hazard[c]
+                if h >= 0 and h < n_classes:
+                    class_area[z, h] += w
+            rk = -1
+            if has_litho:
+                code = litho[c]
+                lo, hi = 0, n_codes
+                while lo < hi:                      # binary search in the sorted rock codes
+                    mid = (lo + hi) // 2
+                    if codes[mid] < code:
+                        lo = mid + 1
+                    else:
+                        hi = mid
+                if lo < n_codes and codes[lo] == code and lo < n_rocks:
+                    rk = lo
+                    rock_area[z, rk] += w
+            r = rate[c]
+            if r != r:
+                n_nodata += 1
+                if not dense:
+                    bins[i] = -1
+                i += 1
+                continue
+            n_valid += 1
+            t_valid += w
+            wr = w * r
+            t_wr += wr
+            t_wr2 += wr * r
+            if has_dcell:
+                d = density_cell[c]
+                if d == d:
+                    t_wrd += wr * d
+            elif has_drock and rk >= 0:
+                d = density_rock[rk]
+                if d == d:
+                    t_wrd += wr * d
+            if r < t_min:
+                t_min = r
+            if r > t_max:
+                t_max = r
+            b = _rate_bin(r, edges, log_low, inv_step)
+            if dense:
+                hist[z, b] += w
+            else:
+                bins[i] = b
+            i += 1
+        area[z] += t_area
+        valid_area[z] += t_valid
+        soluble_area[z] += t_sol
+        s_co2[z] += t_co2
+        s_wr[z] += t_wr
+        s_wr2[z] += t_wr2
+        s_wrd[z] += t_wrd
+        vmin[z] = t_min
+        vmax[z] = t_max
+        valid_cells[z] += n_valid
+        nodata_cells[z] += n_nodata
 
 
 def rate_bin_index(rate_mm_per_kyr) -> np.ndarray:
