@@ -18,7 +18,8 @@ from typer.testing import CliRunner
 from denude.cli import summarize_cmd
 from denude.core.hazard import DEFAULT_CLASS_NAMES, classify
 from denude.core.rocks import RockTable
-from denude.execution.summaries import Grid, cell_areas_km2, summarize_outputs, zone_partials
+from denude.execution.summaries import cell_areas_km2, summarize_outputs, zone_partials
+from denude.io.grid import Grid
 from denude.io.rock_csv import write_rock_table
 
 CRS = "EPSG:32633"
@@ -248,14 +249,14 @@ def test_geographic_grid_areas_and_weighted_mean(tmp_path):
     a, f = 6378137.0, 1 / 298.257223563
     e = math.sqrt(f * (2 - f))
     surface_km2 = 2 * math.pi * a**2 * (1 + (1 - e**2) / e * math.atanh(e)) / 1e6
-    rows, _ = cell_areas_km2(Grid(from_origin(-180, 90, 1.0, 1.0), 360, 180, RioCRS.from_epsg(4326)))
+    rows, _ = cell_areas_km2(Grid(RioCRS.from_epsg(4326).to_wkt(), tuple(from_origin(-180, 90, 1.0, 1.0))[:6], 360, 180))
     assert rows.sum() * 360 == pytest.approx(surface_km2, rel=1e-7)
 
     transform = from_origin(10.0, 60.0, 0.05, 0.05)
     r, c = np.mgrid[0:60, 0:40]
     rate = 10 + r + 0.3 * c
     outdir = make_outdir(tmp_path / "map", rate, transform=transform, crs="EPSG:4326")
-    areas, method = cell_areas_km2(Grid(transform, 40, 60, RioCRS.from_epsg(4326)))
+    areas, method = cell_areas_km2(Grid(RioCRS.from_epsg(4326).to_wkt(), tuple(transform)[:6], 40, 60))
     assert method.startswith("geodesic")
     write_tif(tmp_path / "area.tif", np.repeat(areas[:, None], 40, axis=1), transform, "EPSG:4326", "float64", None)
     zone = jagged(11.0, 58.5, 0.9, seed=5)

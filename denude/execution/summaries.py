@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import concurrent.futures
 import datetime as _dt
-import hashlib
 import json
 import os
 from dataclasses import dataclass
@@ -39,6 +38,8 @@ import shapely
 from denude import __version__
 from denude.core.hazard import DEFAULT_CLASS_NAMES, HAZARD_NODATA
 from denude.core.zonal import PERCENTILE_RELATIVE_RESOLUTION, ZonalAccumulator
+from denude.io.grid import Grid
+from denude.io.rasters import file_sha256
 from denude.errors import GridError, InputError, OutputError, ZoneError
 
 #: Raster files of the ``denude map`` output folder read here (DEVELOPERS.md contract).
@@ -78,25 +79,10 @@ COLUMN_UNITS = {
 
 
 # -- grid ---------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class Grid:
-    """A north-up raster grid: affine transform, shape and CRS."""
-
-    transform: object   # affine.Affine
-    width: int
-    height: int
-    crs: object         # rasterio CRS
-
-    @property
-    def bounds(self):
-        t = self.transform
-        return (t.c, t.f + self.height * t.e, t.c + self.width * t.a, t.f)
-
-
 def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
     """Area of one cell of each row [km2] (float64, length ``height``) and the method used:
     geodesic on the CRS ellipsoid for a geographic CRS, else planar |a*e| (CRS units in m)."""
-    t = grid.transform
+    t = grid.affine
     if grid.crs.is_geographic:
         from pyproj import CRS
 
@@ -252,7 +238,7 @@ def _open_outdir(outdir: Path):
         for ds in datasets.values():
             ds.close()
         raise
-    return datasets, Grid(t, ref.width, ref.height, ref.crs)
+    return datasets, Grid.from_dataset(ref)
 
 
 def hazard_class_names(dataset) -> list[str]:
@@ -275,15 +261,6 @@ def hazard_class_names(dataset) -> list[str]:
         if names:
             return names
     return list(DEFAULT_CLASS_NAMES)
-
-
-def file_sha256(path) -> str:
-    """SHA-256 of a file, read in 8 MiB chunks."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for chunk in iter(lambda: handle.read(1 << 23), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
 
 
 def _vector_files(path: Path) -> list[Path]:
@@ -426,7 +403,7 @@ def summarize_outputs(
             present = ~(shapely.is_missing(points.geometry) | shapely.is_empty(points.geometry))
             xy[present, 0] = shapely.get_x(points.geometry[present])
             xy[present, 1] = shapely.get_y(points.geometry[present])
-            t = grid.transform
+            t = grid.affine
             col = np.floor((xy[:, 0] - t.c) / t.a)
             row = np.floor((xy[:, 1] - t.f) / t.e)
             ok = np.isfinite(col) & np.isfinite(row) & (col >= 0) & (col < grid.width) & (row >= 0) & (row < grid.height)
@@ -513,7 +490,7 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
     from rasterio.windows import Window
 
     strips = strip_plan(grid, datasets[RATE_TIF]) if strips is None else strips
-    t = grid.transform
+    t = grid.affine
     xmin, _, xmax, _ = grid.bounds
     planar = bool(np.all(areas_row == areas_row[0]))
     names = (RATE_TIF, HAZARD_TIF, LITHOLOGY_TIF, CO2_TIF, SOLUBLE_TIF)
