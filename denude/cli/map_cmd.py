@@ -54,7 +54,7 @@ def map_options(
     chemistry: Annotated[Optional[str], typer.Option(help="white (closed form) or speciated.")] = None,
     workers: Annotated[Optional[int], typer.Option(help="Worker threads (default 2).")] = None,
     block_size: Annotated[Optional[int], typer.Option(help="Block and output tile size, cells (default 512).")] = None,
-    gdal_cache_mb: Annotated[Optional[int], typer.Option(help="GDAL block cache, MB (default 256).")] = None,
+    gdal_cache_mb: Annotated[Optional[int], typer.Option(help="GDAL block cache, MB (default 128).")] = None,
     layers: Annotated[Optional[str], typer.Option(help=f"Comma-separated output layers (default all): {', '.join(LAYERS)}.")] = None,
     layout: Annotated[Optional[str], typer.Option(help="auto (COG up to 8192 x 8192 cells, else tiled BigTIFF), cog or tiled.")] = None,
     compress: Annotated[Optional[str], typer.Option(help="deflate or zstd.")] = None,

@@ -28,7 +28,7 @@ relative paths resolve against the job file's folder)::
     overwrite = false
     workers = 2
     block_size = 512                   # cells, also the output tile size
-    gdal_cache_mb = 256
+    gdal_cache_mb = 128
     layers = ["denudation", ...]       # subset of LAYERS; default all
     layout = "auto"                    # auto | cog | tiled
     compress = "deflate"               # deflate | zstd
@@ -122,7 +122,7 @@ class MapSettings:
     overwrite: bool = False
     workers: int = 2
     block_size: int = 512                       # cells
-    gdal_cache_mb: int = 256                    # MB of GDAL block cache
+    gdal_cache_mb: int = 128                    # MB of GDAL block cache (streaming needs few blocks; bench_map.py)
     layers: tuple = tuple(LAYERS)
     layout: str = "auto"
     compress: str = "deflate"
