@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import shutil
 import subprocess
 import sys
@@ -77,7 +76,6 @@ def make_inputs(folder: Path, size: int) -> dict:
 def floor_run(paths: dict, out: Path) -> None:
     """Read every input window by window and write one float32 output, no computation."""
     import rasterio
-    from rasterio.windows import Window
 
     from denude.execution.blocks import block_windows
     from denude.execution.raster_job import output_spec

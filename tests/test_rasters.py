@@ -4,7 +4,6 @@ import numpy as np
 import pytest
 import rasterio
 from rasterio.enums import Resampling
-from rasterio.transform import from_origin
 from rasterio.warp import reproject
 
 from denude.errors import GridError, InputError

@@ -14,13 +14,12 @@ Job files may hold a ``[batch]`` table: ``tile_size``, ``workers``, ``scheduler`
 import difflib
 import inspect
 import os
-import sys
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
 
-from denude.cli.common import CAUTION, handle_user_errors, one_line
+from denude.cli.common import CAUTION, handle_user_errors, one_line, progress_callback
 from denude.cli.map_cmd import map_options, settings_from_options
 from denude.errors import JobFileError
 from denude.execution.tiling import DEFAULT_TILE_SIZE
@@ -123,24 +122,6 @@ def read_batch_job(job: Path):
     return fields, batch
 
 
-def _progress(quiet: bool):
-    """A Rich progress bar over tiles (rate, ETA) on stderr when it is a terminal; else None."""
-    if quiet or not sys.stderr.isatty():
-        return None
-    from rich.console import Console
-    from rich.progress import (BarColumn, MofNCompleteColumn, Progress, ProgressColumn, TimeElapsedColumn,
-                               TimeRemainingColumn)
-    from rich.text import Text
-
-    class RateColumn(ProgressColumn):
-        def render(self, task):
-            speed = task.finished_speed or task.speed
-            return Text("- tiles/min" if speed is None else f"{speed * 60:.1f} tiles/min")
-
-    return Progress("[progress.description]{task.description}", BarColumn(), MofNCompleteColumn(), RateColumn(),
-                    TimeElapsedColumn(), TimeRemainingColumn(), console=Console(stderr=True), transient=True)
-
-
 @handle_user_errors
 def _batch_body(**kwargs):
     from denude.execution.batch import ZoneSpec, run_batch
@@ -170,16 +151,11 @@ def _batch_body(**kwargs):
     scheduler = pick("scheduler")
     quiet = own["quiet"]
     log = (lambda line: None) if quiet else (lambda line: typer.echo(line, err=True))
-    bar = None if own["dry_run"] else _progress(quiet)
     args = dict(tile_size=tile_size, workers=pick("workers"), scheduler=scheduler, retries=pick("retries", 0),
                 retry_failed=own["retry_failed"], zones=zones, merge=bool(pick("merge", False)), log=log,
                 dry_run=own["dry_run"])
-    if bar is None:
-        summary = run_batch(settings, **args)
-    else:
-        with bar:
-            task = bar.add_task("tiles", total=None)
-            summary = run_batch(settings, progress=lambda done, total: bar.update(task, completed=done, total=total), **args)
+    with progress_callback("tiles", quiet or own["dry_run"], rate_unit="tiles") as progress:
+        summary = run_batch(settings, progress=progress, **args)
     if own["dry_run"]:
         if not quiet:
             rows = -(-summary.grid.height // summary.tile_size)

@@ -7,7 +7,7 @@ from typing import Annotated, Optional
 import typer
 
 from denude.cli.common import handle_user_errors
-from denude.cli.map_cmd import _signature_with, _split, settings_from_options
+from denude.cli.map_cmd import _signature_with, settings_from_options
 from denude.execution.raster_job import inspect_job
 from denude.reports.provenance import check_lines
 

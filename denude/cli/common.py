@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import contextlib
 import functools
+import sys
 import warnings
-from typing import Callable, TypeVar
+from typing import Callable, Iterator, Optional, TypeVar
 
 import typer
 
@@ -49,3 +51,33 @@ def handle_user_errors(func: F) -> F:
         return result
 
     return wrapper  # type: ignore[return-value]
+
+
+@contextlib.contextmanager
+def progress_callback(what: str, quiet: bool = False, rate_unit: Optional[str] = None) -> Iterator[Optional[Callable[[int, int], None]]]:
+    """A Rich progress bar on stderr (off with ``quiet`` or when stderr is not a terminal).
+
+    Yields a ``progress(done, total)`` callback for the library's long-running functions,
+    or None when there is no bar. ``rate_unit`` (e.g. "tiles") adds a per-minute rate and an ETA.
+    """
+    if quiet or not sys.stderr.isatty():
+        yield None
+        return
+    from rich.console import Console
+    from rich.progress import (BarColumn, MofNCompleteColumn, Progress, ProgressColumn,
+                               TimeElapsedColumn, TimeRemainingColumn)
+    from rich.text import Text
+
+    columns = ["[progress.description]{task.description}", BarColumn(), MofNCompleteColumn()]
+    if rate_unit:
+        class RateColumn(ProgressColumn):
+            def render(self, task):
+                speed = task.finished_speed or task.speed
+                return Text(f"- {rate_unit}/min" if speed is None else f"{speed * 60:.1f} {rate_unit}/min")
+
+        columns += [RateColumn(), TimeElapsedColumn(), TimeRemainingColumn()]
+    else:
+        columns += [TimeElapsedColumn(), TimeRemainingColumn()]
+    with Progress(*columns, console=Console(stderr=True), transient=True) as bar:
+        task = bar.add_task(what, total=None)
+        yield lambda done, total: bar.update(task, completed=done, total=total)

@@ -7,13 +7,12 @@ Each input is a raster path or a number. Settings may come from a TOML job file
 # annotations stay objects here: the shared option signature is copied between commands
 
 import inspect
-import sys
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
 
-from denude.cli.common import CAUTION, handle_user_errors
+from denude.cli.common import CAUTION, handle_user_errors, progress_callback
 from denude.execution.raster_job import inspect_job, limit_malloc_arenas, run_map
 from denude.io.jobfile import LAYERS, build_settings
 from denude.reports.provenance import check_lines, summary_lines
@@ -85,17 +84,6 @@ MAP_EXTRA = {
 }
 
 
-def _progress_bar(quiet: bool):
-    """A Rich progress bar on stderr when it is a terminal; else None."""
-    if quiet or not sys.stderr.isatty():
-        return None
-    from rich.console import Console
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TimeElapsedColumn
-
-    return Progress("[progress.description]{task.description}", BarColumn(), MofNCompleteColumn(),
-                    TimeElapsedColumn(), console=Console(stderr=True), transient=True)
-
-
 @handle_user_errors
 def _map_body(**kwargs):
     own, flags = _split(kwargs, ("dry_run", "quiet"))
@@ -109,13 +97,8 @@ def _map_body(**kwargs):
             typer.echo("dry run: all checks passed, nothing written")
         return
     limit_malloc_arenas()
-    bar = _progress_bar(own["quiet"])
-    if bar is None:
-        summary = run_map(settings)
-    else:
-        with bar:
-            task = bar.add_task("blocks", total=None)
-            summary = run_map(settings, progress=lambda done, total: bar.update(task, completed=done, total=total))
+    with progress_callback("blocks", own["quiet"]) as progress:
+        summary = run_map(settings, progress=progress)
     if not own["quiet"]:
         for line in summary_lines(summary):
             typer.echo(line)

@@ -2,33 +2,12 @@
 
 from __future__ import annotations
 
-import sys
-from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
 
-from denude.cli.common import CAUTION, handle_user_errors
-
-
-@contextmanager
-def _progress_bar(enabled: bool):
-    """A Rich progress bar on stderr when it is a terminal; yields a ``(done, total)`` callback."""
-    if not enabled or not sys.stderr.isatty():
-        yield None
-        return
-    from rich.console import Console
-    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
-
-    with Progress(TextColumn("summarising rows"), BarColumn(), TextColumn("{task.percentage:>3.0f}%"),
-                  TimeRemainingColumn(), console=Console(stderr=True), transient=True) as bar:
-        task = bar.add_task("rows", total=None)
-
-        def update(done, total):
-            bar.update(task, completed=done, total=total)
-
-        yield update
+from denude.cli.common import CAUTION, handle_user_errors, progress_callback
 
 
 def summarize(
@@ -49,7 +28,7 @@ def summarize(
     """Per-zone denudation summaries (mm/kyr, km2, m3/yr, t/yr), planning units and sinkholes."""
     from denude.execution.summaries import summarize_outputs
 
-    with _progress_bar(not quiet) as progress:
+    with progress_callback("summarising rows", quiet) as progress:
         meta = summarize_outputs(
             outdir, zones, layer=layer, id_field=id_field, units_path=units, units_layer=units_layer,
             units_id_field=units_id_field, points_path=points, points_layer=points_layer,
