@@ -80,19 +80,9 @@ def read_batch_job(job: Path):
     """(map fields or None, [batch] table) of a job file. Without a [batch] table the map
     fields are None and the file goes to `build_settings` unchanged; with one, the other
     tables are flattened here (paths resolved against the file's folder)."""
-    try:
-        import tomllib
-    except ModuleNotFoundError:  # pragma: no cover - Python 3.10
-        import tomli as tomllib
-    from denude.io.jobfile import SECTIONS
+    from denude.io.jobfile import SECTIONS, load_toml
 
-    if not job.is_file():
-        raise JobFileError(f"job file {job} not found; give the path of a TOML file")
-    try:
-        with job.open("rb") as handle:
-            data = tomllib.load(handle)
-    except tomllib.TOMLDecodeError as exc:
-        raise JobFileError(f"job file {job} is not valid TOML ({exc}); fix the syntax") from None
+    data = load_toml(job)
     batch = data.pop("batch", None)
     if batch is None:
         return None, {}

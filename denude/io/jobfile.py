@@ -246,19 +246,25 @@ def _parse_path(value, base: Path | None) -> str:
     return str(Path(os.path.normpath(path)))
 
 
-def read_job_file(path) -> dict:
-    """Read a TOML job file into {MapSettings field: value}, paths resolved against its folder.
-    Unknown sections or keys are errors that suggest the nearest valid name."""
+def load_toml(path) -> dict:
+    """The raw tables of a TOML job file, with one-line errors for a missing or malformed file."""
     path = Path(path)
     if not path.is_file():
         raise JobFileError(f"job file {path} not found; give the path of a TOML file")
     try:
         with path.open("rb") as handle:
-            data = tomllib.load(handle)
+            return tomllib.load(handle)
     except tomllib.TOMLDecodeError as exc:
         raise JobFileError(f"job file {path} is not valid TOML ({exc}); fix the syntax") from None
     except UnicodeDecodeError:
         raise JobFileError(f"job file {path} is not a UTF-8 text file; give a TOML file") from None
+
+
+def read_job_file(path) -> dict:
+    """Read a TOML job file into {MapSettings field: value}, paths resolved against its folder.
+    Unknown sections or keys are errors that suggest the nearest valid name."""
+    path = Path(path)
+    data = load_toml(path)
     base = path.resolve().parent
     fields: dict = {"job_file": str(path.resolve())}
     all_keys = {k: sec for sec, keys in SECTIONS.items() for k in keys}
