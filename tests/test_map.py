@@ -141,7 +141,8 @@ def test_output_rasters_describe_themselves(map_inputs, tmp_path):
                 assert str(ds.nodata) == nodata
                 tags = ds.tags()
                 assert tags["units"] == units and tags["chemistry"] == "white"
-                assert tags["caution"] == "screening estimate, not a site investigation"
+                assert "not a site investigation" in tags["caution"] and "licensed" in tags["caution"]
+                assert "undersaturated" in tags["upper_bound_note"]
                 assert tags["quantity"] and tags["formula"] and "White (1984)" in tags["sources"]
                 assert ds.overviews(1) == [2, 4]              # 56 x 40 cells, 16-cell tiles
                 assert ds.block_shapes[0] == (16, 16)

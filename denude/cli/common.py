@@ -10,14 +10,13 @@ from typing import Callable, Iterator, Optional, TypeVar
 
 import typer
 
+from denude.cautions import CAUTION
 from denude.errors import DenudeError, OutOfRangeWarning
+
+__all__ = ["CAUTION", "handle_user_errors", "one_line", "progress_callback"]
 
 F = TypeVar("F", bound=Callable)
 
-CAUTION = (
-    "Caution: screening estimate of potential (maximum) dissolution, not a site "
-    "investigation; defer to local codes and licensed geological and geotechnical practice."
-)
 
 
 def one_line(message: object) -> str:

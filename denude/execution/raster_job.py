@@ -30,6 +30,7 @@ import rasterio
 from rasterio.windows import Window
 
 import denude
+from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.core.constants import MINERAL_INDEX
 from denude.core.dissolution import warn_out_of_range
 from denude.core.hazard import DEFAULT_COLOURS, HAZARD_NODATA, classify
@@ -60,7 +61,6 @@ from denude.io.rasters import (
 )
 from denude.io.rock_csv import read_rock_table, write_rock_table
 
-CAUTION_TAG = "screening estimate, not a site investigation"
 SOURCES = (
     "White (1984) maximum denudation; Plummer & Busenberg (1982) equilibrium constants; "
     "Brook, Folkoff & Box (1983) soil CO2 when derived from AET"
@@ -139,7 +139,8 @@ def output_spec(layer: str, settings: MapSettings) -> OutputSpec:
         "formula": info.formula,
         "sources": SOURCES,
         "chemistry": settings.chemistry,
-        "caution": CAUTION_TAG,
+        "caution": CAUTION,
+        "upper_bound_note": UPPER_BOUND_NOTE,
         "denude_version": denude.__version__,
     }
     colormap = None
@@ -668,7 +669,8 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
             "tool": "denude",
             "version": denude.__version__,
             "command": "map",
-            "caution": CAUTION_TAG,
+            "caution": CAUTION,
+            "upper_bound_note": UPPER_BOUND_NOTE,
             "settings": settings.as_dict(),
             "inputs": _input_records(settings, report, hashes),
             "grid": grid.as_dict(),

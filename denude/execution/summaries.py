@@ -36,6 +36,7 @@ import numpy as np
 import shapely
 
 from denude import __version__
+from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.core.hazard import DEFAULT_CLASS_NAMES, HAZARD_NODATA
 from denude.core.zonal import PERCENTILE_RELATIVE_RESOLUTION, ZonalAccumulator
 from denude.io.grid import Grid
@@ -429,6 +430,8 @@ def summarize_outputs(
         meta = {
             "tool": "denude summarize",
             "denude_version": __version__,
+            "caution": CAUTION,
+            "upper_bound_note": UPPER_BOUND_NOTE,
             "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "map_folder": str(outdir.resolve()),
             "outputs": {
