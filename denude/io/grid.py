@@ -144,12 +144,17 @@ class Grid:
             "bounds": list(self.bounds),
         }
 
+    def crs_label(self) -> str:
+        """Short CRS name for the terminal: EPSG code, else the start of the CRS string."""
+        crs = self.crs
+        return f"EPSG:{crs.to_epsg()}" if crs.to_epsg() else crs.to_string()[:40]
+
+    def geometry_text(self) -> str:
+        """'CRS, resolution X x Y, bounds (l, b, r, t)' for the terminal."""
+        l, b, r, t = self.bounds
+        return (f"{self.crs_label()}, resolution {self.res[0]:g} x {self.res[1]:g}, "
+                f"bounds ({l:g}, {b:g}, {r:g}, {t:g})")
+
     def describe(self) -> str:
         """One line for the terminal."""
-        crs = self.crs
-        name = f"EPSG:{crs.to_epsg()}" if crs.to_epsg() else crs.to_string()[:40]
-        l, b, r, t = self.bounds
-        return (
-            f"{self.width} x {self.height} cells, {name}, resolution {self.res[0]:g} x {self.res[1]:g}, "
-            f"bounds ({l:g}, {b:g}, {r:g}, {t:g})"
-        )
+        return f"{self.width} x {self.height} cells, {self.geometry_text()}"

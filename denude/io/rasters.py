@@ -91,15 +91,8 @@ class RasterInfo:
         return self.grid.res
 
     def describe(self) -> str:
-        g = self.grid
-        crs = g.crs
-        name = f"EPSG:{crs.to_epsg()}" if crs.to_epsg() else crs.to_string()[:40]
-        l, b, r, t = g.bounds
-        return (
-            f"{self.role}: {self.path} ({self.width} x {self.height}, {self.dtype}, nodata "
-            f"{self.nodata}, {name}, resolution {g.res[0]:g} x {g.res[1]:g}, "
-            f"extent ({l:g}, {b:g}, {r:g}, {t:g}))"
-        )
+        return (f"{self.role}: {self.path} ({self.width} x {self.height}, {self.dtype}, nodata "
+                f"{self.nodata}, {self.grid.geometry_text()})")
 
 
 def open_raster(path, role: str):
