@@ -176,3 +176,16 @@ def test_nan_in_nan_out(chemistry):
         assert np.isnan(values[0]) and (np.isnan(values[1]) or mineral == "gypsum")
     r = compute_block(np.array([1, 1]), np.array([np.nan, 500]), 0.01, np.array([10, np.nan]), ROCKS, chemistry)
     assert np.all(np.isnan(r.denudation_mm_per_kyr))
+
+
+def test_insoluble_rock_is_zero_whatever_the_climate():
+    # Insoluble rock needs no chemistry: out-of-range temperature or PCO2 must not punch holes.
+    codes = np.array([0, 0, 1])
+    t = np.array([-3.0, 10.0, -3.0])
+    p = np.array([0.01, 0.0, 0.01])
+    for method in ("table", "direct"):
+        with pytest.warns(OutOfRangeWarning, match="1 cell"):
+            r = compute_block(codes, 500.0, p, t, ROCKS, method=method)
+        assert r.denudation_mm_per_kyr[0] == 0 and r.denudation_mm_per_kyr[1] == 0
+        assert np.isnan(r.denudation_mm_per_kyr[2])
+        assert r.counts.out_of_range == 1 and r.counts.computed == 2

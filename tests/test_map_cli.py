@@ -78,6 +78,8 @@ def bad_inputs(make_raster, tmp_path):
         "negative": make_raster("neg.tif", np.full(shape, -20, np.float32)),
         "kelvin": make_raster("kelvin.tif", np.full(shape, 283.0, np.float32)),
         "unknown_codes": make_raster("codes42.tif", np.full(shape, 42, np.int16)),
+        "float_codes": make_raster("fcodes.tif", np.where(np.arange(56) < 30, 1.0, 2.4)[None, :].repeat(40, 0).astype(np.float32)),
+        "metres": make_raster("runoff_m.tif", np.full(shape, 0.5, np.float32)),
     }
 
 
@@ -90,6 +92,8 @@ def bad_inputs(make_raster, tmp_path):
     ("--temperature", "kelvin", ["kelvin.tif", "283", "kelvin"]),
     ("--lithology", "unknown_codes", ["codes42.tif", "42", "not in the rock table"]),
     ("--lithology", "missing", ["missing.tif", "not found"]),
+    ("--lithology", "float_codes", ["fcodes.tif", "non-integer code 2.4"]),
+    ("--runoff", "metres", ["runoff_m.tif", "0.5", "m/yr"]),
 ])
 def test_bad_raster_inputs(map_inputs, bad_inputs, tmp_path, option, key, words):
     args = base_args(map_inputs, tmp_path / "out")
@@ -101,6 +105,7 @@ def test_bad_raster_inputs(map_inputs, bad_inputs, tmp_path, option, key, words)
 @pytest.mark.parametrize("option,value,words", [
     ("--pco2", "400", ["400", "--pco2-units ppmv"]),
     ("--runoff", "50000", ["50000", "mm/yr"]),
+    ("--runoff", "0.5", ["0.5", "m/yr"]),
     ("--temperature", "nan", ["temperature", "finite"]),
     ("--lithology-resampling", "bilinear", ["bilinear", "refused"]),
     ("--chemistry", "whte", ["did you mean 'white'"]),

@@ -41,6 +41,8 @@ class OneLineErrorGroup(TyperGroup):
             sys.exit(1)
         if not standalone_mode:
             return rv
+        if rv == 130:  # Ctrl-C: typer turns KeyboardInterrupt into exit code 130
+            typer.echo("denude: interrupted; outputs are staged, so nothing partial is left under a final name", err=True)
         sys.exit(rv if isinstance(rv, int) else 0)
 
 

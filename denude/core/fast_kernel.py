@@ -14,6 +14,12 @@ import math
 import numba
 import numpy as np
 
+# numba's own work queue, never OpenMP: GNU OpenMP aborts a process that forks after a
+# parallel region has run (process pools, forked test helpers). The parallel build is only
+# ever entered from the main thread, which is all the work queue needs.
+if numba.config.THREADING_LAYER == "default":
+    numba.config.THREADING_LAYER = "workqueue"
+
 
 # Status codes per cell, shared with the numpy reference path in kernel.py.
 COMPUTED, NODATA, UNKNOWN_CODE, OUT_OF_RANGE, BELOW_TABLE, COMPUTED_ZERO_RUNOFF = 0, 1, 2, 3, 4, 5
@@ -55,12 +61,16 @@ def _cell_loop(codes, litho_ok, q, p, t, f, code_min, code_row, row_mineral, row
             status[k] = UNKNOWN_CODE
             n_unknown += 1
             continue
-        if fk < 0.0 or fk > 1.0 or tk < t_min or tk > t_max or pk <= 0.0 or pk > p_max:
+        if fk < 0.0 or fk > 1.0:
             status[k] = OUT_OF_RANGE
             n_range += 1
             continue
         mineral = row_mineral[row]
-        if mineral == 0:
+        if mineral != 0 and (tk < t_min or tk > t_max or pk <= 0.0 or pk > p_max):
+            status[k] = OUT_OF_RANGE
+            n_range += 1
+            continue
+        if mineral == 0:  # insoluble rock: 0 whatever the climate
             rate[k] = 0.0
             load_mmol[k] = 0.0
             co2[k] = 0.0

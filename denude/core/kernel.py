@@ -8,7 +8,8 @@ Cell rules:
   runoff, PCO2 and temperature finite, soluble fraction in [0, 1]); else all outputs NaN;
 - insoluble rock gives 0 for every output;
 - runoff <= 0 gives 0 rate and drawdown (the equilibrium load is still reported);
-- temperature or PCO2 outside the constants' validity gives NaN and is counted;
+- temperature or PCO2 outside the constants' validity gives NaN and is counted (except on
+  insoluble rock, which gives 0 whatever the climate);
 - the soluble-area fraction f_area scales the rate and the CO2 drawdown (cell mean), not
   the dissolved load (a concentration in water draining the soluble part).
 """
@@ -117,11 +118,11 @@ def compute_block(
     row = rocks.row_index(codes)
     known = row >= 0
     inputs_ok = litho_ok & np.isfinite(q) & np.isfinite(p) & np.isfinite(t) & np.isfinite(f_area)
+    mineral = np.where(known, rocks.mineral_index[np.maximum(row, 0)], 0)
     bad_fraction = inputs_ok & ((f_area < 0.0) | (f_area > 1.0))
-    bad_chem = inputs_ok & out_of_range_mask(t, p)
+    bad_chem = inputs_ok & out_of_range_mask(t, p) & (mineral != 0)  # insoluble: 0 whatever the climate
     ok = inputs_ok & known & ~bad_fraction & ~bad_chem
 
-    mineral = np.where(known, rocks.mineral_index[np.maximum(row, 0)], 0)
     density = rocks.density_g_cm3[np.maximum(row, 0)] if len(rocks.codes) else np.ones(shape)
     purity = rocks.purity[np.maximum(row, 0)] if len(rocks.codes) else np.ones(shape)
 

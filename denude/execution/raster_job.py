@@ -78,6 +78,10 @@ INPUT_ROLES = {
     "soluble_fraction": (False, "fraction 0-1"),
 }
 
+#: A runoff or precipitation field whose largest value is below this (mm/yr) is taken to be
+#: in m/yr: even hyper-arid regions have some cells with more (common practice, no source).
+MIN_PLAUSIBLE_MAX_MM_PER_YR = 5.0
+
 #: Plausible value bands per input: role -> (low, high, fix when outside). Values outside
 #: usually mean wrong units; these are screening limits (common practice, no source).
 PLAUSIBLE = {
@@ -371,7 +375,10 @@ def _plausibility_key(role: str, settings: MapSettings) -> str:
     return f"pco2:{settings.pco2_units}" if role == "pco2" else role
 
 
-def _check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings) -> None:
+def _check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings,
+                 whole: bool = True) -> None:
+    """Raise a one-line error when values are implausible. ``whole``: the range covers the whole
+    input (a constant or a raster-wide scan), not one window, so unit heuristics apply."""
     key = _plausibility_key(role, settings)
     if key not in PLAUSIBLE:
         return
@@ -382,6 +389,11 @@ def _check_range(role: str, where: str, low_value: float, high_value: float, set
         fix = "values look like percent; divide by 100"
     if role == "pco2" and settings.pco2_units == "atm" and high_value <= 0 and low_value >= -6:
         fix = "values look like log10 atm: use --pco2-units log10atm"
+    if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
+        raise InputError(
+            f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
+            f"like m/yr: give {role} in mm/yr (multiply by 1000)"
+        )
     if low_value < low or high_value > high:
         bad = low_value if low_value < low else high_value
         unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
@@ -483,8 +495,11 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
                 item.value_min, item.value_max = lo, hi
                 _check_range(role, f"{role} raster {path}", lo, hi, settings)
         report.inputs[role] = item
-    if not scan:
+    lithology_is_float = not np.issubdtype(np.dtype(report.inputs["lithology"].info.dtype), np.integer)
+    if not scan and not lithology_is_float:
         return report
+    # A float lithology raster is scanned whole even for a run: a non-integer code must be an
+    # error, never truncated into another rock type.
     codes = unique_codes(settings.lithology)
     report.codes_found = codes
     report.codes_missing = rocks.missing_codes(codes)
@@ -509,7 +524,7 @@ def check_window(settings: MapSettings, plan: JobPlan, result: WindowResult) -> 
     if result.unknown_codes:
         raise missing_codes_error(settings.lithology, result.unknown_codes, plan.rocks)
     for role, (lo, hi) in result.value_ranges.items():
-        _check_range(role, f"{role} raster {plan.warps[role].info.path}", lo, hi, settings)
+        _check_range(role, f"{role} raster {plan.warps[role].info.path}", lo, hi, settings, whole=False)
 
 
 # ---------------------------------------------------------------------------- the run

@@ -358,25 +358,24 @@ def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 6
 
 
 def unique_codes(path, role: str = "lithology") -> list[int]:
-    """Every code in band 1, read block by block (nodata excluded). Non-integer values are an error."""
+    """Every code in band 1, read block by block (nodata and NaN excluded). Non-integer
+    values anywhere in a float raster are an error naming one of them."""
     found: set[int] = set()
     with open_raster(path, role) as ds:
-        if not np.issubdtype(np.dtype(ds.dtypes[0]), np.integer):
-            probe = ds.read(1, window=Window(0, 0, min(ds.width, 256), min(ds.height, 256)), masked=True)
-            vals = probe.compressed()
-            if vals.size and np.any(vals != np.round(vals)):
-                raise InputError(
-                    f"{role} raster {path} holds non-integer values (e.g. {float(vals[vals != np.round(vals)][0]):g}); "
-                    "give integer lithology codes"
-                )
         nodata = ds.nodata
+        is_float = not np.issubdtype(np.dtype(ds.dtypes[0]), np.integer)
         for _, window in ds.block_windows(1):
-            block = ds.read(1, window=window)
-            vals = np.unique(block)
+            vals = np.unique(ds.read(1, window=window))
             if nodata is not None:
                 vals = vals[vals != nodata]
             if vals.dtype.kind == "f":
                 vals = vals[np.isfinite(vals)]
+            if is_float and vals.size and np.any(vals != np.round(vals)):
+                example = float(vals[vals != np.round(vals)][0])
+                raise InputError(
+                    f"{role} raster {path} holds non-integer code {example:g}; give integer lithology "
+                    "codes (codes are categories: they are never rounded)"
+                )
             found.update(int(v) for v in vals)
     return sorted(found)
 
