@@ -303,7 +303,7 @@ def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
     first = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert first.exit_code == 0, first.output
     assert "6 tiles, 6 computed, 0 already done, 0 failed" in first.output
-    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "run.json", "tiles", ".batch.lock"])
+    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "rocks.csv", "run.json", "tiles", ".batch.lock"])
     again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
 

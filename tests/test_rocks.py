@@ -59,6 +59,8 @@ def test_csv_round_trip(tmp_path):
         ("1,a,calcite,2.6,95\n", r"row 2: purity 95.0 is outside \(0, 1\]"),
         ("1,a,calcite,2.6,0\n", r"row 2: purity 0.0 is outside \(0, 1\]"),
         ("x,a,calcite,2.6,0.9\n", "row 2: code 'x' is not an integer"),
+        ("1,a,calcite,2.6,95%\n", "row 2: purity '95%' is a percentage; give a fraction"),
+        ("1,a,calcite,dense,0.9\n", "row 2: density_g_cm3 'dense' and purity '0.9' must be numbers"),
         ("", "has no rows"),
     ],
 )

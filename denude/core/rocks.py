@@ -192,11 +192,18 @@ def table_from_mapping(rows: Iterable[Mapping], source: str) -> RockTable:
         seen[code] = number
         name = str(row.get("name", "")).strip() or f"code {code}"
         mineral = str(row.get("mineral", "")).strip().lower()
+        for column in ("density_g_cm3", "purity"):
+            text = str(row.get(column, "")).strip()
+            if text.endswith("%"):
+                raise RockTableError(
+                    f"{where}: {column} {text!r} is a percentage; give a fraction (e.g. 0.95 for 95%)")
         try:
             density = float(row["density_g_cm3"])
             purity = float(row["purity"])
         except (KeyError, ValueError, TypeError):
-            raise RockTableError(f"{where}: density_g_cm3 and purity must be numbers") from None
+            raise RockTableError(
+                f"{where}: density_g_cm3 {row.get('density_g_cm3')!r} and purity {row.get('purity')!r} "
+                "must be numbers (e.g. 2.6 and 0.95)") from None
         if mineral in REJECTED_ROCKS:
             raise RockTableError(f"{where}: {REJECTED_ROCKS[mineral]}")
         problem = rock_problem(mineral, density, purity)

@@ -455,6 +455,17 @@ def _layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: M
     return written
 
 
+def _write_rock_table_copy(out: Path, settings: MapSettings) -> str:
+    """The rock table used, as OUTDIR/rocks.csv (written to a temporary name, then renamed)."""
+    from denude.execution.raster_job import load_rocks
+    from denude.io.rock_csv import write_rock_table
+
+    staging = out / f".{ROCKS_CSV}.partial-{uuid.uuid4().hex[:8]}"
+    write_rock_table(load_rocks(settings), staging)
+    os.replace(staging, out / ROCKS_CSV)
+    return ROCKS_CSV
+
+
 def _merge_layers(out: Path, grid: Grid, settings: MapSettings, layers, layout: str) -> list[str]:
     """One merged GeoTIFF per layer (COG layout up to its size limit), read from the VRTs."""
     import rasterio
@@ -686,6 +697,7 @@ def run_batch(
                 failed[t.id] = f"tile {t.id} not computed yet; run the batch again"
         done = {t.id for t in tiles if manifest.tiles.get(t.id, {}).get("state") == "done"}
         outputs = _layer_vrts(out, grid, tiles, done, resolved, layers)
+        outputs.append(_write_rock_table_copy(out, resolved))  # so `denude summarize OUTDIR` works
         complete = len(done) == len(tiles)
         if complete and zones is not None:
             outputs.append(_zone_summary(out, tiles, zones, grid, resolved))

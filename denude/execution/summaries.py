@@ -211,19 +211,28 @@ def coverage_pairs(extent, nx, ny, wkbs, index):
 
 
 # -- inputs -------------------------------------------------------------------------------
+def output_file(outdir: Path, name: str) -> Path:
+    """A map layer in ``outdir``: the GeoTIFF of `denude map`, else the VRT mosaic that
+    `denude batch` writes under the same stem."""
+    path = outdir / name
+    if not path.is_file() and path.suffix == ".tif" and path.with_suffix(".vrt").is_file():
+        return path.with_suffix(".vrt")
+    return path
+
+
 def _open_outdir(outdir: Path):
     import rasterio
 
-    missing = [name for name in REQUIRED_FILES if not (outdir / name).is_file()]
+    missing = [name for name in REQUIRED_FILES if not output_file(outdir, name).is_file()]
     if not outdir.is_dir():
         raise InputError(f"{outdir}: not a folder; give the output folder of 'denude map'")
     if missing:
-        raise InputError(f"{outdir}: missing {', '.join(missing)}; give the complete output folder of 'denude map'")
+        raise InputError(f"{outdir}: missing {', '.join(missing)}; give the complete output folder of 'denude map' or 'denude batch'")
     datasets = {}
     try:
         for name in REQUIRED_FILES[:-1]:
             try:
-                datasets[name] = rasterio.open(outdir / name)
+                datasets[name] = rasterio.open(output_file(outdir, name))
             except rasterio.errors.RasterioIOError as exc:
                 raise InputError(f"{outdir / name}: not a readable raster ({' '.join(str(exc).split())}); rerun 'denude map'") from None
         ref = datasets[RATE_TIF]
@@ -366,7 +375,7 @@ def summarize_outputs(
     datasets, grid = _open_outdir(outdir)
     hasher = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     try:
-        input_files = [outdir / n for n in REQUIRED_FILES + ("run.json",) if (outdir / n).is_file()]
+        input_files = [output_file(outdir, n) for n in REQUIRED_FILES + ("run.json",) if output_file(outdir, n).is_file()]
         for p in (zones_path, units_path, points_path):
             if p is not None and Path(p).exists():
                 input_files += _vector_files(Path(p))
