@@ -19,6 +19,7 @@ from denude.cli import summarize_cmd
 from denude.core.hazard import DEFAULT_CLASS_NAMES, classify
 from denude.core.rocks import RockTable
 from denude.execution.summaries import cell_areas_km2, summarize_outputs, zone_partials
+from denude.errors import OutOfRangeWarning
 from denude.io.grid import Grid
 from denude.io.rock_csv import write_rock_table
 
@@ -303,8 +304,9 @@ def test_sinkholes_and_planning_units(tmp_path, smooth, monkeypatch, workers):
     pts = [Point(X0 + 2_500, Y0 - 3_500), Point(X0 + 7_200, Y0 - 1_100), Point(X0 + 15_500, Y0 - 9_900),
            Point(X0 - 5_000, Y0)]
     gpd.GeoDataFrame({"name": ["s1", "s2", "s3", "far"]}, geometry=pts, crs=CRS).to_file(tmp_path / "p.gpkg", engine="pyogrio")
-    table, out = run(tmp_path, outdir, zones, units_path=units, units_id_field="parcel",
-                     points_path=tmp_path / "p.gpkg", workers=workers)
+    with pytest.warns(OutOfRangeWarning, match="1 of 4 point"):
+        table, out = run(tmp_path, outdir, zones, units_path=units, units_id_field="parcel",
+                         points_path=tmp_path / "p.gpkg", workers=workers)
     layers = dict(pyogrio.list_layers(out))
     assert layers == {"zones": "Polygon", "planning_units": "Polygon", "sinkholes": "Point"}
     points = gpd.read_file(out, layer="sinkholes").set_index("name")
@@ -451,3 +453,15 @@ def test_feature_id_field_and_layer_choice(tmp_path, smooth):
     assert table["fid"].tolist() == [1, 2]                       # GeoPackage feature ids
     assert table["area_km2"].tolist() == pytest.approx([16.0, 4.0])  # analytic: 4 x 4 and 2 x 2 cells
     assert dict(pyogrio.list_layers(tmp_path / "b.gpkg"))["subsheds"] == "Polygon"
+
+
+def test_zone_partly_off_the_map_reports_its_whole_area(tmp_path):
+    # analytic: a 4 x 6-cell zone (1 km cells) with half its columns beyond the raster's edge
+    rate = np.full((10, 10), 30.0)
+    outdir = make_outdir(tmp_path / "map", rate)
+    geoms = [cell_box(7, 2, 13, 6), cell_box(0, 0, 5, 10)]
+    table = run(tmp_path, outdir, write_zones(tmp_path / "z.gpkg", geoms))[0]
+    half, whole = table.loc["z0"], table.loc["z1"]
+    assert half.zone_area_km2 == pytest.approx(24.0) and half.area_km2 == pytest.approx(12.0)
+    assert half.map_coverage_fraction == pytest.approx(0.5)
+    assert whole.map_coverage_fraction == pytest.approx(1.0)

@@ -63,7 +63,7 @@ POINTS_LAYER = "sinkholes"
 
 #: Units of the output columns (also written to the summary sidecar).
 COLUMN_UNITS = {
-    "area_km2": "km2", "valid_area_km2": "km2", "soluble_area_km2": "km2",
+    "area_km2": "km2", "zone_area_km2": "km2", "map_coverage_fraction": "1", "valid_area_km2": "km2", "soluble_area_km2": "km2",
     "soluble_area_fraction": "1", "valid_cells": "cells", "nodata_cells": "cells",
     "denudation_mean_mm_per_kyr": "mm/kyr", "denudation_std_mm_per_kyr": "mm/kyr",
     "denudation_min_mm_per_kyr": "mm/kyr", "denudation_max_mm_per_kyr": "mm/kyr",
@@ -80,6 +80,21 @@ COLUMN_UNITS = {
 
 
 # -- grid ---------------------------------------------------------------------------------
+def zone_areas_km2(geometries, grid: Grid) -> np.ndarray:
+    """Whole area of each polygon [km2], inside the map or not, measured like the cells:
+    geodesic on the CRS ellipsoid for a geographic raster CRS, else planar in its CRS units."""
+    from pyproj import CRS
+
+    crs = CRS.from_user_input(grid.crs.to_wkt())
+    if crs.is_geographic:
+        geod = crs.get_geod()
+        return np.array([abs(geod.geometry_area_perimeter(g)[0]) / 1e6 if g is not None else 0.0
+                         for g in geometries])
+    axes = crs.axis_info
+    factor = axes[0].unit_conversion_factor if axes else 1.0
+    return shapely.area(np.asarray(geometries)) * factor * factor / 1e6
+
+
 def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
     """Area of one cell of each row [km2] (float64, length ``height``) and the method used:
     geodesic on the CRS ellipsoid for a geographic CRS, else planar |a*e| (CRS units in m)."""
@@ -418,6 +433,15 @@ def summarize_outputs(
             row = np.floor((xy[:, 1] - t.f) / t.e)
             ok = np.isfinite(col) & np.isfinite(row) & (col >= 0) & (col < grid.width) & (row >= 0) & (row < grid.height)
             point_rc = (np.where(ok, row, -1).astype(np.int64), np.where(ok, col, -1).astype(np.int64))
+            n_outside = int(np.count_nonzero(~ok))
+            if n_outside:
+                import warnings
+
+                from denude.errors import OutOfRangeWarning
+
+                warnings.warn(OutOfRangeWarning(
+                    f"{points_path}: {n_outside} of {n_pts} point(s) lie outside the map (or have no "
+                    "geometry); they are written with no rate, hazard class 255 and no rock"), stacklevel=2)
 
         _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc,
                     point_values if points is not None else None, progress, workers)
@@ -431,6 +455,10 @@ def summarize_outputs(
             cols = zs.acc.finalize(class_names, rock_names, with_points=points is not None)
             if zs.name == ZONES_LAYER:  # shares are asked for planning units only
                 cols = {k: v for k, v in cols.items() if not k.startswith("hazard_share_")}
+            whole = zone_areas_km2(zs.layer.geometry, grid)
+            cols["zone_area_km2"] = whole
+            with np.errstate(invalid="ignore", divide="ignore"):
+                cols["map_coverage_fraction"] = np.where(whole > 0, np.minimum(cols["area_km2"] / whole, 1.0), 0.0)
             tables[zs.name] = _table(zs.layer, cols, class_names, area_method)
         if points is not None:
             tables[POINTS_LAYER] = _point_table(points, point_values, class_names, rock_names)
@@ -453,6 +481,8 @@ def summarize_outputs(
                 "cell_area": area_method,
                 "cell_counts": "whole cells with coverage > 0 (valid_cells: rate present; nodata_cells: rate NaN)",
                 "area_km2": "area of the zone on the raster grid (parts outside the grid not counted)",
+                "zone_area_km2": "whole area of the zone polygon, measured like the cells",
+                "map_coverage_fraction": "area_km2 / zone_area_km2: below 1 where the zone runs off the map",
                 "percentiles": (
                     "area-weighted, from a histogram with a zero bin, a (0, 0.01) mm/kyr bin, 4000 "
                     "log-spaced bins 0.01-10000 mm/kyr and an overflow bin, interpolated within the "
