@@ -33,5 +33,13 @@ class ZoneError(InputError):
     """A zone, planning-unit or point layer is unusable (empty, no CRS, bad id field)."""
 
 
-class OutOfRangeWarning(UserWarning):
+class DenudeWarning(UserWarning):
+    """Root of the warnings the CLI shows as one-line notes."""
+
+
+class OutOfRangeWarning(DenudeWarning):
     """Some cells were outside the validity range of the constants and became NaN."""
+
+
+class CoverageWarning(DenudeWarning):
+    """An input covers only part of the target grid (the rest becomes nodata)."""

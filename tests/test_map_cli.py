@@ -181,3 +181,27 @@ def test_job_file_through_cli_with_override(map_inputs, tmp_path):
         assert set(np.unique(ds.read(1)).tolist()) <= {0, 1, 2, 255}
     job.write_text('[inputs]\nlithology = "x.tif"\ntemprature = 5\n')
     assert_one_line_error(invoke(["map", "--job", job]), "did you mean 'temperature'")
+
+
+def test_resolution_typo_is_refused(map_inputs, tmp_path):
+    # 100 m lithology (40 x 56 cells) mapped at 1 m: 10,000x the cells, a unit or digit typo
+    args = base_args(map_inputs, tmp_path / "out") + [
+        "--grid-crs", "EPSG:32632", "--grid-resolution", "1",
+        "--grid-bounds", "400000 5196000 405600 5200000", "--dry-run"]
+    assert_one_line_error(invoke(args), "64x the cells", "resolution")
+    assert leftovers(tmp_path) == []
+
+
+def test_partial_coverage_is_a_one_line_warning(map_inputs, make_raster, tmp_path):
+    # temperature over the western half only: the eastern cells become nodata, and the run says so
+    half = np.full((40, 28), 8.0, np.float32)
+    temperature = make_raster("temp_half.tif", half)
+    args = base_args(map_inputs, tmp_path / "out")
+    args[args.index("--temperature") + 1] = temperature
+    result = invoke(args + ["--quiet"])
+    assert result.exit_code == 0, result.output
+    warnings = [line for line in result.stderr.splitlines() if line.startswith("denude: warning:")]
+    assert len(warnings) == 1 and "temp_half.tif covers 50.0 %" in warnings[0]
+    with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
+        rate = ds.read(1)
+    assert np.isnan(rate[:, 28:]).all() and np.isfinite(rate[1:, :28][map_inputs["codes"][1:, :28] >= 0]).any()

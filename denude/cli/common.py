@@ -11,7 +11,7 @@ from typing import Callable, Iterator, Optional, TypeVar
 import typer
 
 from denude.cautions import CAUTION
-from denude.errors import DenudeError, OutOfRangeWarning
+from denude.errors import DenudeError, DenudeWarning
 
 __all__ = ["CAUTION", "handle_user_errors", "one_line", "progress_callback"]
 
@@ -27,13 +27,14 @@ def one_line(message: object) -> str:
 def handle_user_errors(func: F) -> F:
     """Decorator for command bodies: DenudeError -> one line on stderr, exit code 1.
 
-    Out-of-range warnings from the numeric core are shown as one-line notes on stderr.
+    The project's own warnings (out-of-range cells, partial coverage) are shown as one-line
+    notes on stderr.
     """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", OutOfRangeWarning)
+            warnings.simplefilter("always", DenudeWarning)
             try:
                 result = func(*args, **kwargs)
             except DenudeError as exc:
@@ -41,7 +42,7 @@ def handle_user_errors(func: F) -> F:
                 raise typer.Exit(code=1) from None
             finally:
                 for item in caught:
-                    if issubclass(item.category, OutOfRangeWarning):
+                    if issubclass(item.category, DenudeWarning):
                         typer.echo(f"denude: warning: {one_line(item.message)}", err=True)
                     else:
                         warnings.showwarning(

@@ -19,6 +19,7 @@ import sys
 import threading
 import time
 import uuid
+import warnings
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -38,7 +39,7 @@ from denude.core.kernel import BlockCounts, compute_block
 from denude.core.rates import runoff_from_water_balance_mm_per_yr
 from denude.core.rocks import RockTable
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
-from denude.errors import GridError, InputError, OutputError
+from denude.errors import CoverageWarning, GridError, InputError, OutputError
 from denude.execution.blocks import block_windows
 from denude.io.grid import Grid, parse_crs
 from denude.io.jobfile import LAYERS, MapSettings, is_constant
@@ -77,6 +78,10 @@ INPUT_ROLES = {
     "temperature": (False, "degrees C"),
     "soluble_fraction": (False, "fraction 0-1"),
 }
+
+#: A target grid with more than this many times the lithology raster's cells is taken to be a
+#: resolution typo (a 100 m grid given as 0.01) rather than deliberate supersampling.
+MAX_SUPERSAMPLING = 64
 
 #: A runoff or precipitation field whose largest value is below this (mm/yr) is taken to be
 #: in m/yr: even hyper-arid regions have some cells with more (common practice, no source).
@@ -487,6 +492,16 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         warp = plan_warp(info, grid, categorical, requested)
         item = InputReport(role, info=info, warp=warp)
         item.overlap = overlap_fraction(info, grid)
+        if role == "lithology" and grid.width * grid.height > MAX_SUPERSAMPLING * info.width * info.height:
+            raise GridError(
+                f"target grid {grid.width} x {grid.height} cells has over {MAX_SUPERSAMPLING}x the cells of "
+                f"the lithology raster {path} ({info.width} x {info.height}); check the target resolution "
+                "(in CRS units: metres, or degrees for a geographic CRS)"
+            )
+        if item.overlap is not None and item.overlap < 0.999:
+            warnings.warn(CoverageWarning(
+                f"{role} raster {path} covers {100 * item.overlap:.1f} % of the target grid; cells outside "
+                "it will be nodata"), stacklevel=2)
         if not categorical:
             lo, hi, n = value_range(path, role) if scan else sample_value_range(path, role)
             if n == 0 and scan:
