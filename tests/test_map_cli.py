@@ -205,3 +205,20 @@ def test_partial_coverage_is_a_one_line_warning(map_inputs, make_raster, tmp_pat
     with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
         rate = ds.read(1)
     assert np.isnan(rate[:, 28:]).all() and np.isfinite(rate[1:, :28][map_inputs["codes"][1:, :28] >= 0]).any()
+
+
+def test_mostly_zero_runoff_and_ignored_elevation_are_warned(map_inputs, tmp_path):
+    # P < AET everywhere: a valid but all-zero map deserves a warning, not silence; an
+    # elevation given with PCO2 in atm is unused and the user is told so.
+    args = base_args(map_inputs, tmp_path / "out")
+    i = args.index("--runoff")
+    del args[i:i + 2]
+    args += ["--precipitation", "300", "--aet", "400", "--elevation", "900", "--quiet"]
+    result = invoke(args)
+    assert result.exit_code == 0, result.output
+    lines = [line for line in result.stderr.splitlines() if line.startswith("denude: warning:")]
+    assert any("runoff <= 0 and a rate of 0" in line and "(100 %)" in line for line in lines)
+    assert any("ignored with --pco2-units atm" in line for line in lines)
+    with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
+        rate = ds.read(1)
+    assert np.nanmax(rate) == 0.0

@@ -719,9 +719,8 @@ def run_batch(
             "manifest": MANIFEST_NAME, "wall_time_s": round(wall, 3),
         }
         write_text_atomic(out / RUN_JSON, json.dumps(record, indent=2, default=str) + "\n")
-    if counts.get("out_of_range"):
-        from denude.core.dissolution import warn_out_of_range
+    from denude.execution.raster_job import warn_about_counts
 
-        warn_out_of_range(counts["out_of_range"])
+    warn_about_counts(counts)
     return BatchSummary(str(out), grid, size, len(tiles), total, skipped, dict(sorted(failed.items())), outputs, engine_name, link, counts,
                         wall, corrupt)

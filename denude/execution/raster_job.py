@@ -39,7 +39,7 @@ from denude.core.kernel import BlockCounts, compute_block
 from denude.core.rates import runoff_from_water_balance_mm_per_yr
 from denude.core.rocks import RockTable
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
-from denude.errors import CoverageWarning, GridError, InputError, OutputError
+from denude.errors import CoverageWarning, DenudeWarning, GridError, InputError, OutputError
 from denude.execution.blocks import block_windows
 from denude.io.grid import Grid, parse_crs
 from denude.io.jobfile import LAYERS, MapSettings, is_constant
@@ -82,6 +82,9 @@ INPUT_ROLES = {
 #: A target grid with more than this many times the lithology raster's cells is taken to be a
 #: resolution typo (a 100 m grid given as 0.01) rather than deliberate supersampling.
 MAX_SUPERSAMPLING = 64
+
+#: Share of computed cells with runoff <= 0 above which a finished run warns.
+ZERO_RUNOFF_WARN_SHARE = 0.5
 
 #: A runoff or precipitation field whose largest value is below this (mm/yr) is taken to be
 #: in m/yr: even hyper-arid regions have some cells with more (common practice, no source).
@@ -485,6 +488,10 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
     if settings.pco2_from_aet:
         report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
+    if settings.pco2_units != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
+        warnings.warn(DenudeWarning(
+            f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings.pco2_units}"),
+            stacklevel=2)
     for role, path in roles.items():
         categorical = INPUT_ROLES[role][0]
         info = inspect_raster(path, role)
@@ -523,6 +530,17 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
     if report.codes_missing:
         raise missing_codes_error(settings.lithology, report.codes_missing, rocks)
     return report
+
+
+def warn_about_counts(counts: dict) -> None:
+    """One-line warnings a finished run owes its user: cells out of the constants' range, and a
+    map that is mostly zero because runoff is <= 0 (P < AET, or swapped inputs)."""
+    warn_out_of_range(counts.get("out_of_range", 0))
+    computed, zero = counts.get("computed", 0), counts.get("zero_runoff", 0)
+    if computed and zero >= ZERO_RUNOFF_WARN_SHARE * computed:
+        warnings.warn(DenudeWarning(
+            f"{zero} of {computed} computed cells ({100 * zero / computed:.0f} %) have runoff <= 0 and a "
+            "rate of 0; check the runoff (or precipitation and AET) inputs and their units"), stacklevel=2)
 
 
 def missing_codes_error(path, codes, rocks: RockTable) -> InputError:
@@ -722,5 +740,5 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
             writer.abort()
         shutil.rmtree(staging, ignore_errors=True)
         raise
-    warn_out_of_range(total.out_of_range)
+    warn_about_counts(total.as_dict())
     return MapRunSummary(str(out), grid, total, outputs + ["run.json"], wall, len(windows), report.layout, record)
