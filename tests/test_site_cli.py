@@ -1,6 +1,7 @@
 """`denude site`: output for a known case, units handling, and one-line errors."""
 
 import json
+import math
 
 import pytest
 from typer.testing import CliRunner
@@ -57,6 +58,14 @@ def test_pco2_from_aet_brook():
     assert data["pco2_atm"] * 1e6 == pytest.approx(340, abs=2)
 
 
+def test_pco2_from_aet_keyword_matches_omitted_pco2():
+    explicit = json.loads(run("--temperature", "10", "--pco2", "from-aet", "--aet", "450", "--runoff", "500", "--json").stdout)
+    implicit = json.loads(run("--temperature", "10", "--aet", "450", "--runoff", "500", "--json").stdout)
+    assert explicit["pco2_atm"] == implicit["pco2_atm"]
+    # Brook et al. (1983), coefficients from memory: log PCO2 = -3.47 + 2.09 (1 - exp(-0.00172 * 450))
+    assert explicit["pco2_atm"] == pytest.approx(10 ** (-3.47 + 2.09 * (1 - math.exp(-0.00172 * 450))), rel=1e-12)
+
+
 def test_gypsum_table_output():
     result = run("--temperature", "25", "--pco2", "0.01", "--runoff", "300", "--rock", "gypsum")
     assert result.exit_code == 0
@@ -74,6 +83,8 @@ def test_gypsum_table_output():
         (["--temperature", "10", "--pco2", "0.01"], "no runoff given", 1),
         (["--temperature", "ten"], "Invalid value for '--temperature'", 2),
         (["--temperature", "10", "--chemistry", "fast"], "Invalid value for '--chemistry'", 2),
+        (["--temperature", "10", "--pco2", "lots", "--runoff", "500"], "is not a number", 1),
+        (["--temperature", "10", "--pco2", "from-aet", "--runoff", "500"], "needs --aet", 1),
     ],
 )
 def test_bad_arguments_one_line(args, message, code):

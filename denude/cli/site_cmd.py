@@ -30,6 +30,20 @@ class Pco2Units(str, Enum):
     log10atm = "log10atm"
 
 
+def parse_pco2_option(text: Optional[str], aet_mm_per_yr: Optional[float]) -> Optional[float]:
+    """--pco2 as a number, or None for 'from-aet' (PCO2 then comes from --aet)."""
+    if text is None:
+        return None
+    if text.strip().lower() == "from-aet":
+        if aet_mm_per_yr is None:
+            raise InputError("--pco2 from-aet needs --aet MM_PER_YR (actual evapotranspiration)")
+        return None
+    try:
+        return float(text)
+    except ValueError:
+        raise InputError(f"--pco2 {text!r} is not a number; give e.g. 0.01 (atm) or 'from-aet'") from None
+
+
 def resolve_pco2_atm(pco2, units, elevation_m, air_pressure, aet_mm_per_yr) -> tuple[float, str]:
     """PCO2 in atm from the site options, and a note on how it was obtained."""
     if pco2 is None:
@@ -80,7 +94,7 @@ def resolve_rock(rock: str, rocks_csv: Optional[Path]):
 def site(
     temperature: Annotated[float, typer.Option(help="Air or soil temperature [degrees C].")],
     runoff: Annotated[Optional[float], typer.Option(help="Runoff [mm/yr].")] = None,
-    pco2: Annotated[Optional[float], typer.Option(help="Soil CO2 partial pressure (units: --pco2-units).")] = None,
+    pco2: Annotated[Optional[str], typer.Option(help="Soil CO2 partial pressure (units: --pco2-units), or 'from-aet' (Brook et al. 1983, needs --aet).")] = None,
     rock: Annotated[str, typer.Option(help="Rock name (or code with --rocks).")] = "limestone",
     chemistry: Annotated[Chemistry, typer.Option(help="white: White (1984) closed form; speciated: full carbonate speciation.")] = Chemistry.white,
     pco2_units: Annotated[Pco2Units, typer.Option("--pco2-units", help="Units of --pco2.")] = Pco2Units.atm,
@@ -99,6 +113,7 @@ def site(
             "degrees C, the validity of the constants"
         )
     rock_type = resolve_rock(rock, rocks)
+    pco2 = parse_pco2_option(pco2, aet)
     pco2_atm, pco2_note = resolve_pco2_atm(pco2, pco2_units, elevation, air_pressure, aet)
     runoff_mm = resolve_runoff_mm_per_yr(runoff, precipitation, aet)
     result = site_rates(rock_type, temperature, pco2_atm, runoff_mm, chemistry.value, soluble_fraction)
