@@ -105,6 +105,7 @@ def test_outside_an_input_footprint_is_nodata(map_inputs, make_raster, tmp_path)
     summary = run_map(settings_for(map_inputs, out, temperature=str(temp)))
     grid = resolve_grid(settings_for(map_inputs, out))
     # where the warped temperature is nodata, every float output is NaN and hazard is 255
+    # (reference footprint: rasterio.warp.reproject of the same input onto the same grid)
     with rasterio.open(temp) as src:
         warped = np.full(grid.shape, np.nan, np.float32)
         rasterio.warp.reproject(rasterio.band(src, 1), warped, dst_transform=grid.affine, dst_crs=grid.crs,
