@@ -60,6 +60,20 @@ _UPPER = np.concatenate(([0.0], RATE_BIN_EDGES_MM_PER_KYR, [np.inf]))
 _LOG_LOW = float(np.log10(RATE_BIN_LOW_MM_PER_KYR))
 _INV_LOG_STEP = float(RATE_LOG_BINS / (np.log10(RATE_BIN_HIGH_MM_PER_KYR) - np.log10(RATE_BIN_LOW_MM_PER_KYR)))
 
+#: float32 rates are binned through a table indexed by their top bits (sign, exponent and the
+#: first 9 mantissa bits: buckets 0.2 % wide, narrower than a bin), then moved up to the
+#: exact bin by comparing with the bin edges; the result equals ``rate_bin_index``.
+_F32_SHIFT = 14
+
+
+def _float32_bin_table() -> np.ndarray:
+    """Bin (int16) of the lowest float32 of each top-bits bucket (positive floats only)."""
+    keys = np.arange(1 << (31 - _F32_SHIFT), dtype=np.uint32)
+    with np.errstate(invalid="ignore"):          # the NaN bit patterns of the last buckets
+        lowest = (keys << np.uint32(_F32_SHIFT)).view(np.float32).astype(np.float64)
+    lowest[~np.isfinite(lowest)] = np.inf
+    return rate_bin_index(lowest).astype(np.int16)
+
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def _rate_bin(r, edges, log_low, inv_step):
@@ -84,15 +98,32 @@ def _rate_bin(r, edges, log_low, inv_step):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, litho, codes,
-                density_cell, density_rock, n_classes, n_rocks, edges, log_low, inv_step,
+def _rate_bin_float32(r, bits, bin_table, upper):
+    """Histogram bin of one float32 rate r > 0 [mm/kyr] from its bits (uint32) through the
+    top-bits table, then up to the exact bin (same rule as ``rate_bin_index``)."""
+    b = bin_table[bits >> 14]
+    while b < upper.size - 1 and r >= upper[b]:
+        b += 1
+    return b
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits, bin_table, upper, fraction, co2,
+                hazard, litho, codes, code_table, density_cell, density_rock, n_classes, n_rocks, edges, log_low, inv_step,
                 area, valid_area, soluble_area, s_wr, s_wr2, s_wrd, s_co2, vmin, vmax,
                 valid_cells, nodata_cells, class_area, rock_area, hist, bins):
-    """One pass over (zone, cell) pairs, adding into the accumulator arrays in place. Runs of
-    equal zone index (the usual order) are summed in local variables first."""
+    """One pass over (zone, cell) pairs, adding into the accumulator arrays in place. The
+    pairs come in runs of one zone: run k holds pairs ``run_start[k]:run_start[k + 1]`` of
+    zone ``run_zone[k]``; a run's sums are kept in local variables first. ``rate_bits`` is
+    the float32 rate viewed as uint32 (empty for float64 rates: bins then come from log10);
+    ``code_table[code - codes[0]]`` is a code's rock row when the codes span a short range
+    (empty otherwise: binary search)."""
     dense = bins.size == 0
     n_codes = codes.size
-    n = zone.size
+    n_bins = upper.size
+    by_bits = rate_bits.size > 0
+    by_table = code_table.size > 0
+    code_lo = codes[0] if n_codes > 0 else 0
     per_row = row_area.size > 1
     has_fraction = fraction.size > 0
     has_co2 = co2.size > 0
@@ -100,9 +131,8 @@ def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, l
     has_litho = litho.size > 0
     has_dcell = density_cell.size > 0
     has_drock = density_rock.size > 0
-    i = 0
-    while i < n:
-        z = zone[i]
+    for k in range(run_zone.size):
+        z = run_zone[k]
         t_area = 0.0
         t_valid = 0.0
         t_sol = 0.0
@@ -114,12 +144,11 @@ def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, l
         t_max = vmax[z]
         n_valid = 0
         n_nodata = 0
-        while i < n and zone[i] == z:
+        for i in range(run_start[k], run_start[k + 1]):
             w = cov[i]
             if not w > 0.0:
                 if not dense:
                     bins[i] = -1
-                i += 1
                 continue
             c = cell[i]
             if per_row:
@@ -142,22 +171,29 @@ def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, l
             rk = -1
             if has_litho:
                 code = litho[c]
-                lo, hi = 0, n_codes
-                while lo < hi:                      # binary search in the sorted rock codes
-                    mid = (lo + hi) // 2
-                    if codes[mid] < code:
-                        lo = mid + 1
-                    else:
-                        hi = mid
-                if lo < n_codes and codes[lo] == code and lo < n_rocks:
-                    rk = lo
+                if by_table:
+                    j = code - code_lo
+                    if j >= 0 and j < code_table.size:
+                        rk = code_table[j]
+                else:
+                    lo, hi = 0, n_codes
+                    while lo < hi:                      # binary search in the sorted rock codes
+                        mid = (lo + hi) // 2
+                        if codes[mid] < code:
+                            lo = mid + 1
+                        else:
+                            hi = mid
+                    if lo < n_codes and codes[lo] == code:
+                        rk = lo
+                if rk >= n_rocks:
+                    rk = -1
+                if rk >= 0:
                     rock_area[z, rk] += w
             r = rate[c]
             if r != r:
                 n_nodata += 1
                 if not dense:
                     bins[i] = -1
-                i += 1
                 continue
             n_valid += 1
             t_valid += w
@@ -176,12 +212,16 @@ def _accumulate(zone, cell, cov, row_area, width, rate, fraction, co2, hazard, l
                 t_min = r
             if r > t_max:
                 t_max = r
-            b = _rate_bin(r, edges, log_low, inv_step)
+            if r <= 0.0:
+                b = 0
+            elif by_bits:
+                b = _rate_bin_float32(r, rate_bits[c], bin_table, upper)
+            else:
+                b = _rate_bin(r, edges, log_low, inv_step)
             if dense:
                 hist[z, b] += w
             else:
                 bins[i] = b
-            i += 1
         area[z] += t_area
         valid_area[z] += t_valid
         soluble_area[z] += t_sol
@@ -200,6 +240,23 @@ def rate_bin_index(rate_mm_per_kyr) -> np.ndarray:
     rate = np.asarray(rate_mm_per_kyr, dtype=np.float64)
     idx = np.searchsorted(RATE_BIN_EDGES_MM_PER_KYR, rate, side="right") + 1
     return np.where(rate <= 0.0, 0, idx).astype(np.int64)
+
+
+_F32_BIN_TABLE = _float32_bin_table()
+assert _F32_SHIFT == 14  # the kernel shifts by the literal 14
+
+#: Rock codes spanning at most this many values are looked up in a table (else binary search).
+_CODE_TABLE_SPAN = 1 << 16
+
+
+def _code_table(codes: np.ndarray) -> np.ndarray:
+    """Rock row (int32) by ``code - codes[0]`` (-1: no such code), or empty when the sorted
+    ``codes`` span more than ``_CODE_TABLE_SPAN`` values."""
+    if codes.size == 0 or codes[-1] - codes[0] >= _CODE_TABLE_SPAN:
+        return np.zeros(0, np.int32)
+    table = np.full(int(codes[-1] - codes[0]) + 1, -1, np.int32)
+    table[codes - codes[0]] = np.arange(codes.size, dtype=np.int32)
+    return table
 
 
 def _group_bounds(sorted_zone: np.ndarray):
@@ -267,12 +324,21 @@ class ZonalAccumulator:
             density_g_cm3=density_g_cm3,
         )
 
-    def add_cells(self, zone_index, cell_index, coverage, cell_area_km2_by_row, width, rate_mm_per_kyr, *,
-                  soluble_fraction=None, co2_t_per_km2_yr=None, hazard_class=None, lithology_code=None,
-                  rock_codes=None, rock_density_g_cm3=None, density_g_cm3=None):
-        """Add (zone, cell) pairs of one block in one compiled pass.
+    def add_cells(self, zone_index, cell_index, coverage, cell_area_km2_by_row, width, rate_mm_per_kyr, **layers):
+        """Add (zone, cell) pairs of one block: ``zone_index`` per pair; see ``add_runs``."""
+        zone = np.ascontiguousarray(zone_index, dtype=np.int64).ravel()
+        starts, run_zone = _group_bounds(zone)
+        return self.add_runs(run_zone, np.r_[starts, zone.size], cell_index, coverage,
+                             cell_area_km2_by_row, width, rate_mm_per_kyr, **layers)
 
-        ``cell_index`` indexes the flat (row-major, ``width`` columns) block arrays: rate
+    def add_runs(self, run_zone, run_start, cell_index, coverage, cell_area_km2_by_row, width, rate_mm_per_kyr, *,
+                 soluble_fraction=None, co2_t_per_km2_yr=None, hazard_class=None, lithology_code=None,
+                 rock_codes=None, rock_density_g_cm3=None, density_g_cm3=None):
+        """Add (zone, cell) pairs of one block in one compiled pass. The pairs come in runs:
+        pairs ``run_start[k]:run_start[k + 1]`` belong to zone ``run_zone[k]``
+        (``run_start`` has one entry more than ``run_zone``).
+
+        ``cell_index`` (int32 or int64) indexes the flat (row-major, ``width`` columns) block arrays: rate
         [mm/kyr] (NaN = nodata), soluble-area fraction [-], CO2 drawdown [t/km2/yr], hazard
         class (255 = nodata) and lithology code. The weight of a pair is ``coverage`` [0-1]
         x ``cell_area_km2_by_row[cell // width]`` (a length-1 array: the same for all rows).
@@ -282,8 +348,11 @@ class ZonalAccumulator:
         e = np.zeros(0, np.float64)
         ei = np.zeros(0, np.int64)
         arr = lambda a, dt: e if a is None else np.ascontiguousarray(a, dtype=dt).ravel()  # noqa: E731
-        zone = np.ascontiguousarray(zone_index, dtype=np.int64).ravel()
-        cell = np.ascontiguousarray(cell_index, dtype=np.int64).ravel()
+        run_zone = np.ascontiguousarray(run_zone, dtype=np.int64).ravel()
+        run_start = np.ascontiguousarray(run_start, dtype=np.int64).ravel()
+        cell = np.ascontiguousarray(cell_index).ravel()
+        if cell.dtype not in (np.int32, np.int64):
+            cell = cell.astype(np.int64)
         cov = np.ascontiguousarray(coverage, dtype=np.float64).ravel()
         rate = np.ascontiguousarray(rate_mm_per_kyr).ravel()
         if rate.dtype not in (np.float32, np.float64):
@@ -293,16 +362,20 @@ class ZonalAccumulator:
         codes = ei if rock_codes is None else np.ascontiguousarray(rock_codes, dtype=np.int64).ravel()
         fraction = e if soluble_fraction is None else np.ascontiguousarray(soluble_fraction).ravel()
         co2 = e if co2_t_per_km2_yr is None else np.ascontiguousarray(co2_t_per_km2_yr).ravel()
-        if zone.size == 0:
+        if run_start.size != run_zone.size + 1 or (run_start.size and (run_start[0] != 0 or run_start[-1] != cell.size)) \
+                or cov.size != cell.size or np.any(np.diff(run_start) < 0):
+            raise ValueError("zone runs do not cover the pair arrays, or pair arrays of different lengths")
+        if cell.size == 0:
             return self
-        if (zone.min() < 0 or zone.max() >= self.n_zones or cell.min() < 0 or cell.max() >= rate.size
-                or cov.size != zone.size or cell.size != zone.size):
-            raise ValueError("zone or cell index out of range, or pair arrays of different lengths")
+        if (run_zone.min() < 0 or run_zone.max() >= self.n_zones or cell.min() < 0 or cell.max() >= rate.size):
+            raise ValueError("zone or cell index out of range")
         hist = self.hist if self.dense else np.zeros((1, 1))
-        bins = np.empty(0 if self.dense else zone.size, np.int64)
+        bins = np.empty(0 if self.dense else cell.size, np.int64)
+        rate_bits = rate.view(np.uint32) if rate.dtype == np.float32 else np.zeros(0, np.uint32)
         _accumulate(
-            zone, cell, cov, np.ascontiguousarray(cell_area_km2_by_row, dtype=np.float64).ravel(), int(width),
-            rate, fraction, co2, hazard, litho, codes, arr(density_g_cm3, np.float64),
+            run_zone, run_start, cell, cov, np.ascontiguousarray(cell_area_km2_by_row, dtype=np.float64).ravel(), int(width),
+            rate, rate_bits, _F32_BIN_TABLE, _UPPER, fraction, co2, hazard, litho, codes, _code_table(codes),
+            arr(density_g_cm3, np.float64),
             arr(rock_density_g_cm3, np.float64), self.n_classes, self.n_rocks,
             RATE_BIN_EDGES_MM_PER_KYR, _LOG_LOW, _INV_LOG_STEP,
             self.area_km2, self.valid_area_km2, self.soluble_area_km2, self.sum_w_rate, self.sum_w_rate2,
@@ -311,9 +384,10 @@ class ZonalAccumulator:
         )
         if not self.dense:
             ok = bins >= 0
+            zone = np.repeat(run_zone, np.diff(run_start))[ok]
             weights = cov[ok] * (np.asarray(cell_area_km2_by_row, np.float64).ravel()[cell[ok] // int(width)]
                                  if np.size(cell_area_km2_by_row) > 1 else float(np.ravel(cell_area_km2_by_row)[0]))
-            self._sparse_add(zone[ok] * N_RATE_BINS + bins[ok], weights)
+            self._sparse_add(zone * N_RATE_BINS + bins[ok], weights)
         return self
 
     def _sparse_add(self, keys, weights):

@@ -123,17 +123,19 @@ def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
     return np.full(grid.height, area), "planar (|a*e| of the geotransform)"
 
 
-class _GridSource:
-    """exactextract raster source for one strip of the grid that holds no data (zeros)."""
+class _CellIndexSource:
+    """exactextract raster source for one strip of the grid whose values are the flat
+    (row-major) cell indices of the strip (int32): exactextract's ``values`` operation then
+    names the cells it covers, and no pixel of the maps is read by exactextract."""
 
     def __new__(cls, *args, **kwargs):  # built lazily so importing this module is cheap
         from exactextract.raster import RasterSource
 
-        class GridOnlySource(RasterSource):
+        class CellIndexSource(RasterSource):
             def __init__(self, extent, nx, ny):
                 super().__init__()
                 self._extent, self._nx, self._ny = extent, nx, ny
-                self._zeros = np.zeros(0, np.uint8)   # never written: windows are views of it
+                self._index = np.arange(nx * ny, dtype=np.int32).reshape(ny, nx)
 
             def res(self):
                 e = self._extent
@@ -149,11 +151,9 @@ class _GridSource:
                 return None
 
             def read_window(self, x0, y0, nx, ny):
-                if self._zeros.size < nx * ny:
-                    self._zeros = np.zeros(max(nx * ny, 2 * self._zeros.size), np.uint8)
-                return self._zeros[: nx * ny].reshape(ny, nx)
+                return self._index[y0:y0 + ny, x0:x0 + nx]
 
-        return GridOnlySource(*args, **kwargs)
+        return CellIndexSource(*args, **kwargs)
 
 
 def _features(wkbs, index):
@@ -193,36 +193,57 @@ def _features(wkbs, index):
     return WkbSource()
 
 
-def coverage_pairs(extent, nx, ny, wkbs, index):
-    """Coverage fractions of the cells of an ``ny`` x ``nx`` grid with ``extent``
-    (xmin, ymin, xmax, ymax) by each polygon (WKB): returns zone index, flat cell index
-    (row-major in the grid) and coverage fraction [0-1], grouped by zone in input order."""
-    from exactextract import exact_extract
+@dataclass
+class CoveragePairs:
+    """Cells covered by zones in one strip, in runs of one zone: pairs
+    ``run_start[k]:run_start[k + 1]`` belong to zone ``run_zone[k]``; ``cell`` is the flat
+    (row-major) cell index in the strip (int32), ``coverage`` the fraction [0-1] of the cell
+    inside the zone (float64)."""
 
+    run_zone: np.ndarray
+    run_start: np.ndarray
+    cell: np.ndarray
+    coverage: np.ndarray
+
+    @property
+    def zone(self) -> np.ndarray:
+        """Zone index of every pair (int64)."""
+        return np.repeat(self.run_zone, np.diff(self.run_start))
+
+
+def coverage_pairs(extent, nx, ny, wkbs, index) -> CoveragePairs:
+    """Coverage fractions of the cells of an ``ny`` x ``nx`` grid (fewer than 2**31 cells) with
+    ``extent`` (xmin, ymin, xmax, ymax) by each polygon (WKB), grouped by zone in input order."""
+    from exactextract import exact_extract
     from exactextract.feature import JSONFeature
     from exactextract.writer import Writer
 
-    cells, covs = [], []
+    if nx * ny >= 2 ** 31:
+        raise ValueError("strip too large for int32 cell indices")
+    zones, cells, covs = [], [], []
 
     class ArrayWriter(Writer):
-        """Collects the cell_id and coverage arrays of each feature, in order."""
+        """Collects the covered cells and their coverage of each feature, in order."""
 
         def write(self, feature):
             f = JSONFeature()
             feature.copy_to(f)
             props = f.feature["properties"]
-            cells.append(props["cell_id"])
-            covs.append(props["coverage"])
+            if len(props["values"]):
+                zones.append(props["zone_index"])
+                cells.append(props["values"])
+                covs.append(props["coverage"])
 
         def features(self):
             return None
 
-    exact_extract(_GridSource(extent, nx, ny), _features(wkbs, index), ["cell_id", "coverage"], output=ArrayWriter())
+    exact_extract(_CellIndexSource(extent, nx, ny), _features(wkbs, index), ["values", "coverage"],
+                  include_cols=["zone_index"], output=ArrayWriter())
+    if not cells:
+        return CoveragePairs(np.zeros(0, np.int64), np.zeros(1, np.int64), np.zeros(0, np.int32), np.zeros(0, np.float64))
     lengths = np.fromiter((len(c) for c in cells), np.int64, len(cells))
-    if lengths.sum() == 0:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.float64)
-    zone = np.repeat(np.asarray(index, np.int64), lengths)
-    return zone, np.concatenate(cells).astype(np.int64, copy=False), np.concatenate(covs).astype(np.float64, copy=False)
+    return CoveragePairs(np.asarray(zones, np.int64), np.r_[0, np.cumsum(lengths)],
+                         np.concatenate(cells), np.concatenate(covs).astype(np.float64, copy=False))
 
 
 # -- inputs -------------------------------------------------------------------------------
@@ -560,9 +581,8 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
         return {name: datasets[name].read(1, window=window).ravel() for name in wanted}
 
     def accumulate(zs, pairs, row_area, data):
-        zone, cell, cov = pairs
-        zs.acc.add_cells(
-            zone, cell, cov, row_area, grid.width, data[RATE_TIF],
+        zs.acc.add_runs(
+            pairs.run_zone, pairs.run_start, pairs.cell, pairs.coverage, row_area, grid.width, data[RATE_TIF],
             soluble_fraction=data[SOLUBLE_TIF], co2_t_per_km2_yr=data[CO2_TIF],
             hazard_class=data[HAZARD_TIF], lithology_code=data[LITHOLOGY_TIF],
             rock_codes=lookup.codes, rock_density_g_cm3=lookup.density_g_cm3,
