@@ -52,6 +52,19 @@ def test_debye_huckel_parameters():
     assert debye_huckel_b(25.0) == pytest.approx(0.3281, rel=3e-3)
 
 
+def test_dielectric_debye_huckel_parameters():
+    from denude.core.activity import debye_huckel_a_dielectric, debye_huckel_b_dielectric, water_dielectric_constant
+
+    # Handbook dielectric constant of water (CRC; from memory): 87.9 at 0 C, 78.4 at 25 C, 69.9 at 50 C
+    assert water_dielectric_constant([0.0, 25.0, 50.0]) == pytest.approx([87.9, 78.4, 69.9], abs=0.2)
+    # Textbook A and B at 25 C from the dielectric constant (from memory: A 0.509-0.512, B 0.328-0.329)
+    assert 0.509 < debye_huckel_a_dielectric(25.0) < 0.512
+    assert 0.328 < debye_huckel_b_dielectric(25.0) < 0.3295
+    # the two sets agree within 0.5 % at 25 C and part above 30 C, where the linear fits stop
+    assert debye_huckel_a_dielectric(25.0) == pytest.approx(debye_huckel_a(25.0), rel=5e-3)
+    assert debye_huckel_a_dielectric(70.0) / debye_huckel_a(70.0) - 1 > 0.01
+
+
 def test_water_density_handbook():
     # Handbook density of water (CRC; from memory): 0.99997 kg/L at 4 C, 0.99705 at 25 C.
     assert water_density_kg_per_l(4.0) == pytest.approx(0.99997, abs=2e-5)

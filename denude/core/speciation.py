@@ -20,7 +20,11 @@ from __future__ import annotations
 import numpy as np
 
 from denude.core import constants as C
-from denude.core.activity import log_gamma
+from denude.core.activity import DH_PARAMETERS, log_gamma
+
+#: Debye-Hueckel A and B of the speciated mode: from the dielectric constant of water (valid
+#: beyond 30 C, where the linear fits of the closed form drift; see denude.core.activity).
+DH = "dielectric"
 from denude.core.equilibria import (
     log_k1,
     log_k2,
@@ -59,15 +63,15 @@ def _positive_quartic_root(a4, a3, a1, a0):
 class _Gammas:
     """Activity coefficients of every charged species at ionic strength I (mol/kg)."""
 
-    def __init__(self, ionic, t):
-        self.ca = 10.0 ** log_gamma(2, C.ION_SIZE_CA_A, ionic, t, C.B_DOT_CA)
-        self.mg = 10.0 ** log_gamma(2, C.ION_SIZE_MG_A, ionic, t, C.B_DOT_MG)
-        self.hco3 = 10.0 ** log_gamma(1, C.ION_SIZE_HCO3_A, ionic, t)
-        self.co3 = 10.0 ** log_gamma(2, C.ION_SIZE_CO3_A, ionic, t)
-        self.h = 10.0 ** log_gamma(1, C.ION_SIZE_H_A, ionic, t)
-        self.oh = 10.0 ** log_gamma(1, C.ION_SIZE_OH_A, ionic, t)
-        self.cahco3 = 10.0 ** log_gamma(1, C.ION_SIZE_CAHCO3_A, ionic, t)
-        self.mghco3 = 10.0 ** log_gamma(1, C.ION_SIZE_MGHCO3_A, ionic, t)
+    def __init__(self, ionic, t, ab):
+        self.ca = 10.0 ** log_gamma(2, C.ION_SIZE_CA_A, ionic, t, C.B_DOT_CA, parameters=ab)
+        self.mg = 10.0 ** log_gamma(2, C.ION_SIZE_MG_A, ionic, t, C.B_DOT_MG, parameters=ab)
+        self.hco3 = 10.0 ** log_gamma(1, C.ION_SIZE_HCO3_A, ionic, t, parameters=ab)
+        self.co3 = 10.0 ** log_gamma(2, C.ION_SIZE_CO3_A, ionic, t, parameters=ab)
+        self.h = 10.0 ** log_gamma(1, C.ION_SIZE_H_A, ionic, t, parameters=ab)
+        self.oh = 10.0 ** log_gamma(1, C.ION_SIZE_OH_A, ionic, t, parameters=ab)
+        self.cahco3 = 10.0 ** log_gamma(1, C.ION_SIZE_CAHCO3_A, ionic, t, parameters=ab)
+        self.mghco3 = 10.0 ** log_gamma(1, C.ION_SIZE_MGHCO3_A, ionic, t, parameters=ab)
         self.neutral = 10.0 ** (C.NEUTRAL_SALTING_KG_PER_MOL * ionic)
 
 
@@ -93,12 +97,13 @@ def _speciate_carbonate(temperature_c, pco2_atm, with_magnesium):
     else:
         k_mineral = 10.0 ** log_k_calcite(t)
 
+    ab = DH_PARAMETERS[DH](t)
     ionic = np.full(t.shape, 3e-3)
     ratio_mg = np.ones(t.shape)  # free Mg / free Ca molality, set by equal totals
     total = np.zeros(t.shape)
     k12a = k1 * k2 * a_co2
     for _ in range(MAX_OUTER_ITERATIONS):
-        g = _Gammas(ionic, t)
+        g = _Gammas(ionic, t, ab)
         if with_magnesium:
             # a_Ca a_Mg a_CO3^2 = Kdol, m_Mg = r m_Ca  ->  m_Ca = A h^2
             coef_ca = np.sqrt(k_mineral / (g.ca * g.mg * ratio_mg)) / k12a
@@ -162,10 +167,11 @@ def gypsum_load_mol_per_kg(temperature_c, pco2_atm=None):
     k_pair = 10.0 ** log_k_caso4_pair(t)
     m_free = np.sqrt(k_gyp)
     total = np.zeros(t.shape)
+    ab = DH_PARAMETERS[DH](t)
     for _ in range(MAX_OUTER_ITERATIONS):
         ionic = 4.0 * m_free
-        g_ca = 10.0 ** log_gamma(2, C.ION_SIZE_CA_A, ionic, t, C.B_DOT_CA)
-        g_so4 = 10.0 ** log_gamma(2, C.ION_SIZE_SO4_A, ionic, t, C.B_DOT_SO4)
+        g_ca = 10.0 ** log_gamma(2, C.ION_SIZE_CA_A, ionic, t, C.B_DOT_CA, parameters=ab)
+        g_so4 = 10.0 ** log_gamma(2, C.ION_SIZE_SO4_A, ionic, t, C.B_DOT_SO4, parameters=ab)
         m_free = np.sqrt(k_gyp / (g_ca * g_so4))
         new_total = m_free + k_pair * k_gyp / 10.0 ** (C.NEUTRAL_SALTING_KG_PER_MOL * ionic)
         with np.errstate(invalid="ignore", divide="ignore"):
