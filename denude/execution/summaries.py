@@ -3,8 +3,10 @@
 Method, in one pass over the rasters:
 
 1. The grid is cut into strips of whole rows. For each strip, exactextract gives the
-   coverage fraction of every cell touched by every zone (``cell_id`` and ``coverage``
-   operations over a grid-only raster source, so no pixel is read by exactextract).
+   coverage fraction of every cell touched by every zone (``values`` and ``coverage``
+   operations over a raster source whose values are the strip's cell indices, so no pixel
+   of the maps is read by exactextract; ``values`` of an int32 index is cheaper than its
+   ``cell_id`` operation).
 2. Each raster of the folder is read strip by strip, once, and the covered cells are
    gathered and added to a ``denude.core.zonal.ZonalAccumulator`` (float64 partial sums and
    a weighted histogram, mergeable across tiles) with weight = coverage x cell area [km2].
