@@ -43,3 +43,7 @@ class OutOfRangeWarning(DenudeWarning):
 
 class CoverageWarning(DenudeWarning):
     """An input covers only part of the target grid (the rest becomes nodata)."""
+
+
+class MosaicOverlapWarning(DenudeWarning):
+    """Tiles of a mosaic input overlap; the later tile in mosaic order fills the overlap."""

@@ -288,6 +288,76 @@ def test_zone_summaries_over_tiles_equal_merged_raster(region, tmp_path):
     assert tiled["area_km2"].iloc[1] == pytest.approx(5.1 * 3.95)   # km2 of the box inside the grid
 
 
+
+def test_zone_summary_geopackage_and_sidecar_match_the_csv(region, tmp_path):
+    gpd = pytest.importorskip("geopandas")
+    shapely = pytest.importorskip("shapely")
+    import pandas
+
+    from denude.cautions import CAUTION
+
+    # zones in geographic coordinates while the rasters are in UTM: the GeoPackage keeps the file's CRS
+    boxes = [shapely.box(400100, 5194000, 403900, 5199000), shapely.box(402500, 5196000, 409600, 5199950)]
+    path = tmp_path / "sheds.gpkg"
+    gpd.GeoDataFrame({"wid": ["north", "east"]}, geometry=boxes, crs=CRS).to_crs("EPSG:4326").to_file(
+        path, layer="sheds", engine="pyogrio")
+    original = gpd.read_file(path, layer="sheds")
+    out = tmp_path / "zg"
+    summary = run_batch(settings_for(region["paths"], out), TILE, workers=0, zones=ZoneSpec(str(path), None, "wid"))
+    trio = ["zones_summary.csv", "zones_summary.gpkg", "zones_summary.summary.json"]
+    assert all(name in summary.outputs for name in trio)
+    run = json.loads((out / "run.json").read_text())
+    assert all(name in run["outputs"] for name in trio)
+    assert not [p.name for p in out.iterdir() if "partial" in p.name]
+
+    table = pandas.read_csv(out / "zones_summary.csv")
+    frame = gpd.read_file(out / "zones_summary.gpkg", layer="zones")
+    assert len(frame) == len(table) == 2
+    assert frame.crs.to_epsg() == 4326
+    assert list(frame["wid"]) == list(table["wid"]) == ["north", "east"]
+    assert [c for c in frame.columns if c != frame.geometry.name] == list(table.columns)
+    for column in table.columns:
+        if table[column].dtype.kind in "fi":
+            np.testing.assert_allclose(frame[column].to_numpy(float), table[column].to_numpy(float), rtol=1e-12,
+                                       err_msg=column)
+        else:
+            assert list(frame[column]) == list(table[column]), column
+    assert table["area_km2"].iloc[0] == pytest.approx(3.8 * 5.0, rel=1e-6)      # box inside the grid, km2
+    assert table["area_km2"].iloc[1] == pytest.approx(5.5 * 3.95, rel=1e-6)     # clipped at x = 408000 m
+    for got, want in zip(frame.geometry, original.geometry):
+        assert got.equals_exact(want, tolerance=1e-9)
+
+    meta = json.loads((out / "zones_summary.summary.json").read_text())
+    assert meta["caution"] == CAUTION and meta["tool"] == "denude batch"
+    assert meta["method"]["cell_area"].startswith("planar")
+    assert meta["method"]["weighting"].startswith("coverage fraction")
+    assert meta["units"]["denudation_mean_mm_per_kyr"] == "mm/kyr"
+    assert meta["zones"]["file"] == str(path.resolve()) and meta["zones"]["count"] == 2
+    assert meta["zones"]["reprojected_from"] == "EPSG:4326"
+    from denude.io.rasters import file_sha256
+
+    assert meta["zones"]["sha256"] == file_sha256(path)
+    assert meta["batch"]["manifest_sha256"] == file_sha256(out / "manifest.json")
+    assert meta["batch"]["job_key"] == manifest(out)["job_key"] and meta["batch"]["tiles"] == 6
+
+
+def test_zone_summary_write_failure_is_one_error_and_leaves_no_partial_files(region, tmp_path):
+    gpd = pytest.importorskip("geopandas")
+    shapely = pytest.importorskip("shapely")
+
+    path = tmp_path / "zones.gpkg"
+    gpd.GeoDataFrame({"wid": ["a"]}, geometry=[shapely.box(400100, 5194000, 402000, 5199000)], crs=CRS).to_file(
+        path, layer="zones", engine="pyogrio")
+    out = tmp_path / "zfail"
+    run_batch(settings_for(region["paths"], out), TILE, workers=0)
+    (out / "zones_summary.gpkg").mkdir()                 # a folder where the GeoPackage goes
+    with pytest.raises(OutputError, match="zones_summary.gpkg: cannot be replaced") as info:
+        run_batch(settings_for(region["paths"], out), TILE, workers=0, zones=ZoneSpec(str(path), None, "wid"))
+    assert "\n" not in str(info.value)
+    assert not (out / "zones_summary.csv").exists() and not (out / "zones_summary.summary.json").exists()
+    assert not [p.name for p in out.iterdir() if "partial" in p.name]
+
+
 # ------------------------------------------------------------------------------- CLI
 def cli_args(paths, out, *extra):
     return ["batch", "--lithology", str(paths["lithology"]), "--runoff", str(paths["runoff"]),
@@ -306,6 +376,22 @@ def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
     assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "rocks.csv", "run.json", "tiles", ".batch.lock"])
     again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
+
+
+def test_cli_warns_once_about_overlapping_input_tiles(region, tmp_path):
+    folder = tmp_path / "runoff_tiles"
+    shutil.copytree(region["folders"]["runoff"], folder)
+    whole = read(region["paths"]["runoff"])
+    write_tif(folder / "runoff_99.tif", whole[10:20, 30:40], 30, 10, -9999.0)   # over runoff_00 and runoff_01
+    paths = dict(region["paths"], runoff=folder)
+    result = CliRunner().invoke(app, cli_args(paths, tmp_path / "ov", "--dry-run"))
+    assert result.exit_code == 0, result.output
+    notes = [line for line in result.stderr.splitlines() if line.startswith("denude: warning:")]
+    assert notes == [
+        "denude: warning: runoff mosaic: 2 tile pair(s) overlap, first runoff_00.tif and runoff_99.tif by 7 x 10 "
+        "cells (columns x rows); in an overlap the later file in name order (runoff_99.tif) wins where it holds "
+        "data; give non-overlapping tiles or a VRT to choose otherwise"
+    ]
 
 
 @pytest.mark.parametrize("extra, code, words", [

@@ -1,16 +1,19 @@
 """Mosaic VRTs of tile folders, globs and lists: same cells as the source raster, explicit
 nodata, one-line errors for tiles that do not fit together; tiling on integer offsets."""
 
+import warnings
+
 import numpy as np
 import pytest
 import rasterio
 from rasterio.transform import from_origin
 
-from denude.errors import GridError, InputError
+from denude.errors import GridError, InputError, MosaicOverlapWarning
 from denude.execution.tiling import check_tile_size, make_tiles, sub_windows
 from denude.io.grid import Grid
 from denude.io.mosaic import (
-    default_nodata, expand_tiles, mosaic_kind, mosaic_vrt_text, vrt_source_files, write_mosaic_vrt,
+    TileInfo, default_nodata, expand_tiles, find_overlaps, mosaic_kind, mosaic_vrt_text, vrt_source_files,
+    write_mosaic_vrt,
 )
 
 CRS = "EPSG:32632"
@@ -157,3 +160,57 @@ def test_tiles_partition_the_grid_on_integer_offsets():
     for bad in (0, 40, 17.5, "x", True):
         with pytest.raises(InputError, match="multiple of 16"):
             check_tile_size(bad)
+
+
+# ------------------------------------------------------------------------- overlaps
+def test_overlapping_tiles_warn_once_and_the_later_tile_wins(tmp_path):
+    a = np.full((8, 10), 1.0, np.float32)           # rows 0-8, cols 0-10
+    b = np.full((8, 8), 2.0, np.float32)            # rows 3-11, cols 6-14: 4 x 5 cells over a
+    b[4, 1] = -1.0                                  # nodata inside the overlap (row 7, col 7)
+    c = np.full((4, 4), 3.0, np.float32)            # rows 0-4, cols 12-16: 2 x 1 cells over b
+    write_tif(tmp_path / "t" / "a.tif", a, 0, 0, nodata=-1.0)
+    write_tif(tmp_path / "t" / "b.tif", b, 6, 3, nodata=-1.0)
+    write_tif(tmp_path / "t" / "c.tif", c, 12, 0, nodata=-1.0)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        vrt = write_mosaic_vrt(str(tmp_path / "t"), "runoff", tmp_path / "m.vrt")
+    found = [w for w in caught if issubclass(w.category, MosaicOverlapWarning)]
+    assert len(found) == 1
+    message = str(found[0].message)
+    assert message.startswith("runoff mosaic: 2 tile pair(s) overlap, first a.tif and b.tif by 4 x 5 cells")
+    assert "later file in name order (b.tif) wins" in message and "VRT" in message and "\n" not in message
+    data = read_all(vrt)[0]
+    assert data.shape == (11, 16)
+    expected = np.full((5, 4), 2.0, np.float32)
+    expected[4, 1] = 1.0                            # b has no data there: a shows through
+    assert np.array_equal(data[3:8, 6:10], expected)
+    assert np.all(data[3, 12:14] == 3.0)            # c over b
+    assert np.all(data[4:11, 12:14] == 2.0) and data[0, 0] == 1.0 and data[10, 0] == -1.0
+
+
+def test_edge_sharing_tiles_do_not_warn(tmp_path, ramp):
+    cut(tmp_path / "tiles", ramp, [17], [23, 40], nodata=-9999.0)
+    a = np.ones((8, 8), np.float32)
+    write_tif(tmp_path / "near" / "a.tif", a)
+    write_tif(tmp_path / "near" / "b.tif", a, 8, 0, dx=-1e-5)    # 1e-7 cells over a: a shared edge
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", MosaicOverlapWarning)
+        tiled = write_mosaic_vrt(str(tmp_path / "tiles"), "runoff", tmp_path / "m.vrt")
+        near = write_mosaic_vrt(str(tmp_path / "near"), "runoff", tmp_path / "n.vrt")
+    assert read_all(tiled)[0].tobytes() == ramp.tobytes()
+    assert read_all(near)[0].shape == (8, 16)
+
+
+def test_overlap_pairs_counted_over_a_grid_of_tiles():
+    """3 x 3 tiles of 10 cells, each one cell wider and taller than its slot: 6 side-by-side,
+    6 stacked and 8 diagonal neighbours overlap."""
+    wkt = rasterio.crs.CRS.from_string(CRS).to_wkt()
+    infos = [TileInfo(f"t{i}{j}.tif", wkt, (RES, 0.0, X0 + 10 * j * RES, 0.0, -RES, Y0 - 10 * i * RES),
+                      11, 11, "float32", None, (11, 1)) for i in range(3) for j in range(3)]
+    found = find_overlaps(infos[::-1])                            # order of the sweep does not matter
+    assert found.pairs == 20
+    assert found.first == ("t22.tif", "t21.tif") and (found.width_cells, found.height_cells) == (1.0, 11.0)
+    assert find_overlaps(infos[:1]) is None
+    edge = [TileInfo(p, wkt, (RES, 0.0, X0 + 10 * k * RES, 0.0, -RES, Y0), 10, 10, "float32", None, (10, 1))
+            for k, p in enumerate(("a.tif", "b.tif"))]
+    assert find_overlaps(edge) is None

@@ -36,7 +36,7 @@ BATCH_EXTRA = {
     "retries": (Annotated[Optional[int], typer.Option("--retries", metavar="N", help="Extra attempts for a failing tile (default 0).")], None),
     "retry_failed": (Annotated[bool, typer.Option("--retry-failed", help="Run only the tiles that failed in an earlier run.")], False),
     "merge": (Annotated[bool, typer.Option("--merge", help="Also write one merged cloud-optimised GeoTIFF per layer.")], False),
-    "zones": (Annotated[Optional[str], typer.Option(help="Zone polygons (watersheds): per-tile partial sums merged into zones_summary.csv.")], None),
+    "zones": (Annotated[Optional[str], typer.Option(help="Zone polygons (watersheds): per-tile partial sums merged into zones_summary.csv, .gpkg and .summary.json.")], None),
     "zones_layer": (Annotated[Optional[str], typer.Option(help="Layer of the zone file.")], None),
     "zones_id_field": (Annotated[Optional[str], typer.Option(help="Zone id field (default: feature ids as zone_id).")], None),
 }

@@ -9,7 +9,8 @@ outputs) under a temporary name and renames it into place when complete. The man
 (``manifest.json``) records each tile's state and checksums, so running the same job again
 skips tiles already done and verified. At the end one VRT per layer (``<layer>.vrt``), an
 optional merged cloud-optimised GeoTIFF per layer (``merge=True``), zone summaries merged
-from per-tile partial sums (``zones=``) and ``run.json`` are written into OUTDIR.
+from per-tile partial sums (``zones=``: ``zones_summary.csv``, ``.gpkg`` and ``.summary.json``)
+and ``run.json`` are written into OUTDIR.
 
 Values equal a whole-region `denude map` run bit for bit: each cell is computed by
 ``compute_window`` from the same inputs whatever window holds it.
@@ -48,6 +49,8 @@ TILES_DIR = "tiles"
 INPUTS_DIR = "inputs"
 ZONES_PARTIAL = "zones_partial.npz"
 ZONES_SUMMARY = "zones_summary.csv"
+ZONES_GPKG = "zones_summary.gpkg"
+ZONES_SIDECAR = "zones_summary.summary.json"
 ROCKS_CSV = "rocks.csv"
 RUN_JSON = "run.json"
 #: Fields of MapSettings that may hold a raster input (path or mosaic spec).
@@ -507,11 +510,17 @@ def _read_zone_partial(path: Path):
         return ZonalAccumulator.from_state({k: data[k] for k in data.files})
 
 
-def _zone_summary(out: Path, tiles: list[Tile], zones: ZoneSpec, grid: Grid, settings: MapSettings) -> str:
-    """Merge the per-tile partial sums and write ``zones_summary.csv`` (one row per zone)."""
-    import pandas
-
+def _zone_summary(out: Path, tiles: list[Tile], zones: ZoneSpec, grid: Grid, settings: MapSettings) -> list[str]:
+    """Merge the per-tile partial sums and write ``zones_summary.csv`` (one row per zone), its
+    GeoPackage twin ``zones_summary.gpkg`` (layer ``zones``, geometries in the zone file's
+    CRS) and the sidecar ``zones_summary.summary.json`` (method, units, caution, provenance),
+    all through the writer of `denude summarize`. Returns the file names."""
     from denude.execution.raster_job import load_rocks
+    from denude.execution.summaries import (
+        COLUMN_UNITS, ZONES_LAYER, cell_area_method, layer_provenance, sidecar_head, sidecar_outputs,
+        summary_method, vector_files, write_summary_files, zone_table,
+    )
+    from denude.io.rasters import file_sha256
 
     acc = None
     for t in tiles:
@@ -520,12 +529,35 @@ def _zone_summary(out: Path, tiles: list[Tile], zones: ZoneSpec, grid: Grid, set
     rocks = load_rocks(settings)
     lookup = rocks.lookup()
     rock_names = [rocks.by_code(int(c)).name for c in lookup.codes]
-    cols = acc.finalize(list(settings.hazard_names), rock_names, with_points=False)
+    class_names = list(settings.hazard_names)
+    cols = acc.finalize(class_names, rock_names, with_points=False)
     cols = {k: v for k, v in cols.items() if not k.startswith("hazard_share_")}
     polygons = _zone_geometries(zones, grid.crs_wkt)
-    frame = pandas.DataFrame({polygons.id_field: polygons.ids, **cols})
-    write_text_atomic(out / ZONES_SUMMARY, frame.to_csv(index=False))
-    return ZONES_SUMMARY
+    area_method = cell_area_method(grid)
+    tables = {ZONES_LAYER: zone_table(polygons, cols, class_names, area_method, method_column=False)}
+    layer_names = {ZONES_LAYER: ZONES_LAYER}
+    gpkg, csv, sidecar = out / ZONES_GPKG, out / ZONES_SUMMARY, out / ZONES_SIDECAR
+    csv_paths = {ZONES_LAYER: csv}
+    method = summary_method(area_method, class_names)
+    for absent in ("zone_area_km2", "map_coverage_fraction", "sinkholes"):   # not in the batch table
+        method.pop(absent)
+    manifest_path = out / MANIFEST_NAME
+    hashes = {str(f): file_sha256(f) for f in [*vector_files(Path(zones.path)), out / ROCKS_CSV, manifest_path]}
+    meta = {
+        **sidecar_head("denude batch"),
+        "batch_folder": str(out),
+        "outputs": sidecar_outputs(gpkg, tables, layer_names, csv_paths),
+        "method": method,
+        "zones": {**layer_provenance(zones.path, polygons), "sha256": hashes[str(zones.path)]},
+        "batch": {"manifest": str(manifest_path), "manifest_sha256": hashes[str(manifest_path)],
+                  "job_key": json.loads(manifest_path.read_text(encoding="utf-8")).get("job_key"),
+                  "tiles": len(tiles), "run_record": str(out / RUN_JSON)},
+        "raster_crs": grid.crs.to_string(),
+        "units": COLUMN_UNITS,
+        "inputs": {path: {"sha256": digest} for path, digest in hashes.items()},
+    }
+    write_summary_files(gpkg, tables, layer_names, csv_paths, sidecar, meta)
+    return [ZONES_SUMMARY, ZONES_GPKG, ZONES_SIDECAR]
 
 
 def run_batch(
@@ -547,7 +579,7 @@ def run_batch(
     0 = in this process); ``scheduler``: a Dask scheduler address (or cluster object) instead
     of the local pool; ``retries``: extra attempts per failing tile; ``retry_failed``: run
     only the tiles that failed before; ``zones``: polygons summarised per tile and merged
-    into ``zones_summary.csv``; ``merge``: also write one merged GeoTIFF per layer;
+    into ``zones_summary.csv``, ``zones_summary.gpkg`` and ``zones_summary.summary.json``; ``merge``: also write one merged GeoTIFF per layer;
     ``progress(done, total)`` after each tile; ``log(line)`` for notes (dashboard link,
     redone tiles). Tile failures do not raise: see ``BatchSummary.tiles_failed``.
     """
@@ -700,7 +732,7 @@ def run_batch(
         outputs.append(_write_rock_table_copy(out, resolved))  # so `denude summarize OUTDIR` works
         complete = len(done) == len(tiles)
         if complete and zones is not None:
-            outputs.append(_zone_summary(out, tiles, zones, grid, resolved))
+            outputs += _zone_summary(out, tiles, zones, grid, resolved)
         if complete and merge:
             outputs += _merge_layers(out, grid, resolved, layers, choose_layout(resolved.layout, grid))
         counts: dict = {}

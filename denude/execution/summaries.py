@@ -97,6 +97,16 @@ def zone_areas_km2(geometries, grid: Grid) -> np.ndarray:
     return shapely.area(np.asarray(geometries)) * factor * factor / 1e6
 
 
+def cell_area_method(grid: Grid) -> str:
+    """How ``cell_areas_km2`` measures the cells of ``grid`` (text for the summary sidecar)."""
+    if grid.crs.is_geographic:
+        from pyproj import CRS
+
+        geod = CRS.from_user_input(grid.crs.to_wkt()).get_geod()
+        return f"geodesic (pyproj.Geod on the {geod.initstring.strip()} ellipsoid, per row)"
+    return "planar (|a*e| of the geotransform)"
+
+
 def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
     """Area of one cell of each row [km2] (float64, length ``height``) and the method used:
     geodesic on the CRS ellipsoid for a geographic CRS, else planar |a*e| (CRS units in m)."""
@@ -113,8 +123,7 @@ def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
             ring_lon = np.concatenate((lons, lons[::-1]))
             ring_lat = np.concatenate((np.full(lons.size, top), np.full(lons.size, bottom)))
             areas[i] = abs(geod.polygon_area_perimeter(ring_lon, ring_lat)[0]) / 1e6
-        method = f"geodesic (pyproj.Geod on the {geod.initstring.strip()} ellipsoid, per row)"
-        return areas, method
+        return areas, cell_area_method(grid)
     from pyproj import CRS
 
     axes = CRS.from_user_input(grid.crs.to_wkt()).axis_info
@@ -122,7 +131,7 @@ def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
     if axes and axes[0].unit_name.lower() in ("degree", "radian", "grad"):
         raise GridError(f"raster CRS axis unit {axes[0].unit_name!r} is not linear; reproject the maps to a metric or geographic CRS")
     area = abs(t.a * t.e - t.b * t.d) * factor * factor / 1e6
-    return np.full(grid.height, area), "planar (|a*e| of the geotransform)"
+    return np.full(grid.height, area), cell_area_method(grid)
 
 
 class _CellIndexSource:
@@ -311,7 +320,7 @@ def hazard_class_names(dataset) -> list[str]:
     return list(DEFAULT_CLASS_NAMES)
 
 
-def _vector_files(path: Path) -> list[Path]:
+def vector_files(path: Path) -> list[Path]:
     """A vector file and its sidecars (shapefile parts)."""
     if path.suffix.lower() == ".shp":
         return sorted(p for p in path.parent.glob(path.stem + ".*") if p.is_file())
@@ -416,7 +425,7 @@ def summarize_outputs(
         input_files = [output_file(outdir, n) for n in REQUIRED_FILES + ("run.json",) if output_file(outdir, n).is_file()]
         for p in (zones_path, units_path, points_path):
             if p is not None and Path(p).exists():
-                input_files += _vector_files(Path(p))
+                input_files += vector_files(Path(p))
         hashes = {str(p): hasher.submit(file_sha256, p) for p in input_files}
 
         rocks = read_rock_table(outdir / ROCKS_CSV)
@@ -482,59 +491,28 @@ def summarize_outputs(
             cols["zone_area_km2"] = whole
             with np.errstate(invalid="ignore", divide="ignore"):
                 cols["map_coverage_fraction"] = np.where(whole > 0, np.minimum(cols["area_km2"] / whole, 1.0), 0.0)
-            tables[zs.name] = _table(zs.layer, cols, class_names, area_method)
+            tables[zs.name] = zone_table(zs.layer, cols, class_names, area_method)
         if points is not None:
             tables[POINTS_LAYER] = _point_table(points, point_values, class_names, rock_names)
 
         layer_names = {ZONES_LAYER: zones.layer if zones.layer not in (UNITS_LAYER, POINTS_LAYER) else ZONES_LAYER}
         meta = {
-            "tool": "denude summarize",
-            "denude_version": __version__,
-            "caution": CAUTION,
-            "upper_bound_note": UPPER_BOUND_NOTE,
-            "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+            **sidecar_head("denude summarize"),
             "map_folder": str(outdir.resolve()),
-            "outputs": {
-                "geopackage": str(out_path),
-                "layers": {layer_names.get(k, k): len(v) for k, v in tables.items()},
-                "csv": {layer_names.get(k, k): str(p) for k, p in csv_paths.items()},
-            },
-            "method": {
-                "weighting": "coverage fraction of each cell inside the zone (exactextract) x cell area",
-                "cell_area": area_method,
-                "cell_counts": "whole cells with coverage > 0 (valid_cells: rate present; nodata_cells: rate NaN)",
-                "area_km2": "area of the zone on the raster grid (parts outside the grid not counted)",
-                "zone_area_km2": "whole area of the zone polygon, measured like the cells",
-                "map_coverage_fraction": "area_km2 / zone_area_km2: below 1 where the zone runs off the map",
-                "percentiles": (
-                    "area-weighted, from a histogram with a zero bin, a (0, 0.01) mm/kyr bin, 4000 "
-                    "log-spaced bins 0.01-10000 mm/kyr and an overflow bin, interpolated within the "
-                    f"bin clipped to the exact min/max; resolution {PERCENTILE_RELATIVE_RESOLUTION:.4%} of the value"
-                ),
-                "rock_volume": "sum of rate [mm/kyr] x covered area [km2]; 1 mm/kyr over 1 km2 = 1 m3/yr",
-                "rock_mass": "rock volume x bulk density of the cell's rock type (rocks.csv, g/cm3 = t/m3)",
-                "sinkholes": "rate, hazard class and rock of the cell holding each point; a point counts in every zone it intersects",
-                "hazard_classes": class_names,
-            },
-            "zones": {
-                "file": str(zones_path), "layer": zones.layer, "id_field": zones.id_field, "count": len(zones),
-                "repaired_geometries": zones.repaired, "reprojected_from": zones.reprojected_from,
-            },
+            "outputs": sidecar_outputs(out_path, tables, layer_names, csv_paths),
+            "method": summary_method(area_method, class_names),
+            "zones": layer_provenance(zones_path, zones),
             "raster_crs": grid.crs.to_string(),
             "units": COLUMN_UNITS,
         }
         if units_path is not None:
-            u = sets[1].layer
-            meta["planning_units"] = {
-                "file": str(units_path), "layer": u.layer, "id_field": u.id_field, "count": len(u),
-                "repaired_geometries": u.repaired, "reprojected_from": u.reprojected_from,
-            }
+            meta["planning_units"] = layer_provenance(units_path, sets[1].layer)
         if points is not None:
             meta["sinkholes"] = {"file": str(points_path), "layer": points.layer, "count": len(points),
                                  "outside_raster": int((point_rc[0] < 0).sum()),
                                  "reprojected_from": points.reprojected_from}
         meta["inputs"] = {p: {"sha256": f.result()} for p, f in hashes.items()}
-        _write_all(out_path, tables, layer_names, csv_paths, sidecar, meta)
+        write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta)
         return meta
     finally:
         hasher.shutdown(wait=True, cancel_futures=True)
@@ -688,13 +666,65 @@ def _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc
                 progress(done, grid.height)
 
 
-def _table(layer, cols, class_names, area_method):
-    """GeoDataFrame of the zone layer: id, summary columns, method, geometry (file's CRS)."""
+# -- outputs (shared with the zone summaries of `denude batch`) ------------------------------
+def sidecar_head(tool: str) -> dict:
+    """First entries of a ``.summary.json`` sidecar: tool, version, cautions, creation time."""
+    return {
+        "tool": tool,
+        "denude_version": __version__,
+        "caution": CAUTION,
+        "upper_bound_note": UPPER_BOUND_NOTE,
+        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+    }
+
+
+def sidecar_outputs(out_path, tables, layer_names, csv_paths) -> dict:
+    """The ``outputs`` entry of a sidecar: GeoPackage, its layers with row counts, CSV twins."""
+    return {
+        "geopackage": str(out_path),
+        "layers": {layer_names.get(k, k): len(v) for k, v in tables.items()},
+        "csv": {layer_names.get(k, k): str(p) for k, p in csv_paths.items()},
+    }
+
+
+def summary_method(area_method: str, class_names) -> dict:
+    """The ``method`` entry of a sidecar: how cells are weighted, measured and summed."""
+    return {
+        "weighting": "coverage fraction of each cell inside the zone (exactextract) x cell area",
+        "cell_area": area_method,
+        "cell_counts": "whole cells with coverage > 0 (valid_cells: rate present; nodata_cells: rate NaN)",
+        "area_km2": "area of the zone on the raster grid (parts outside the grid not counted)",
+        "zone_area_km2": "whole area of the zone polygon, measured like the cells",
+        "map_coverage_fraction": "area_km2 / zone_area_km2: below 1 where the zone runs off the map",
+        "percentiles": (
+            "area-weighted, from a histogram with a zero bin, a (0, 0.01) mm/kyr bin, 4000 "
+            "log-spaced bins 0.01-10000 mm/kyr and an overflow bin, interpolated within the "
+            f"bin clipped to the exact min/max; resolution {PERCENTILE_RELATIVE_RESOLUTION:.4%} of the value"
+        ),
+        "rock_volume": "sum of rate [mm/kyr] x covered area [km2]; 1 mm/kyr over 1 km2 = 1 m3/yr",
+        "rock_mass": "rock volume x bulk density of the cell's rock type (rocks.csv, g/cm3 = t/m3)",
+        "sinkholes": "rate, hazard class and rock of the cell holding each point; a point counts in every zone it intersects",
+        "hazard_classes": class_names,
+    }
+
+
+def layer_provenance(file, layer) -> dict:
+    """Sidecar entry of a polygon layer (``PolygonLayer``) read from ``file``."""
+    return {
+        "file": str(file), "layer": layer.layer, "id_field": layer.id_field, "count": len(layer),
+        "repaired_geometries": layer.repaired, "reprojected_from": layer.reprojected_from,
+    }
+
+
+def zone_table(layer, cols, class_names, area_method, method_column: bool = True):
+    """GeoDataFrame of the zone layer: id, summary columns, method (unless ``method_column``
+    is False), geometry (file's CRS)."""
     import geopandas
 
     data = {layer.id_field: layer.frame[layer.id_field].to_numpy()}
     data.update(cols)
-    data["cell_area_method"] = np.full(len(layer), "geodesic" if area_method.startswith("geodesic") else "planar", dtype=object)
+    if method_column:
+        data["cell_area_method"] = np.full(len(layer), "geodesic" if area_method.startswith("geodesic") else "planar", dtype=object)
     return geopandas.GeoDataFrame(data, geometry=list(layer.frame.geometry.values), crs=layer.frame.crs)
 
 
@@ -713,8 +743,10 @@ def _point_table(points, values, class_names, rock_names):
     return geopandas.GeoDataFrame(data, geometry=list(frame.geometry.values), crs=frame.crs)
 
 
-def _write_all(out_path, tables, layer_names, csv_paths, sidecar, meta):
-    """Write every output under a temporary name, then rename them all; on failure remove them."""
+def write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta):
+    """Write the GeoPackage ``out_path`` (one layer per table, named by ``layer_names``), the
+    CSV twins ``csv_paths`` (the tables without geometry) and the JSON ``sidecar`` under
+    temporary names, then rename them all; on failure remove them."""
     from denude.io.vectors import write_layers
 
     tag = f".partial-{os.getpid()}"
@@ -734,10 +766,16 @@ def _write_all(out_path, tables, layer_names, csv_paths, sidecar, meta):
             moves.append((tmp, path))
         tmp = sidecar.with_name("." + sidecar.name + tag)
         written.append(tmp)
-        tmp.write_text(json.dumps(meta, indent=2, default=str) + "\n", encoding="utf-8")
+        try:
+            tmp.write_text(json.dumps(meta, indent=2, default=str) + "\n", encoding="utf-8")
+        except OSError as exc:
+            raise OutputError(f"{sidecar}: cannot write ({exc.strerror or exc}); choose a writable folder") from None
         moves.append((tmp, sidecar))
         for src, dst in moves:
-            os.replace(src, dst)
+            try:
+                os.replace(src, dst)
+            except OSError as exc:
+                raise OutputError(f"{dst}: cannot be replaced ({exc.strerror or exc}); remove it or choose another output") from None
     except BaseException:
         for item in written:
             try:

@@ -13,7 +13,10 @@ share CRS, cell size, data type and cell edges (a common pixel lattice); anythin
 one-line ``InputError`` naming the tile and the fix. The VRT carries an explicit nodata value:
 the tiles' common nodata, else NaN for floating-point data or the type's minimum (maximum for
 unsigned types) for integers. Tiles whose nodata differs from it are added as masked sources, so
-their nodata cells stay nodata. Where tiles overlap, the later tile in name order wins.
+their nodata cells stay nodata. Where tiles overlap, the later tile in name order (for a file
+list: list order) wins where it holds data. Overlaps are found from the tiles' bounds (no pixel is
+read) and reported as one ``MosaicOverlapWarning`` per mosaic; overlaps thinner than half a cell
+(shared edges) are ignored.
 
 ``write_vrt`` writes any north-up VRT from integer pixel rectangles (used for the batch output
 mosaics, whose tiles share edges exactly). Every file is written under a temporary name, fsynced
@@ -26,6 +29,7 @@ import glob
 import math
 import os
 import uuid
+import warnings
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
 from pathlib import Path
@@ -33,7 +37,7 @@ from xml.sax.saxutils import escape, quoteattr
 
 import numpy as np
 
-from denude.errors import GridError, InputError, OutputError
+from denude.errors import GridError, InputError, MosaicOverlapWarning, OutputError
 
 #: Suffixes of tile files picked up from a folder.
 TILE_SUFFIXES = (".tif", ".tiff")
@@ -41,6 +45,8 @@ TILE_SUFFIXES = (".tif", ".tiff")
 LIST_SUFFIXES = (".txt", ".lst")
 #: Cell offsets closer than this to a whole number count as aligned [cells].
 ALIGN_TOLERANCE_CELLS = 1e-6
+#: Tiles overlapping by less than this in either direction do not count as overlapping [cells].
+OVERLAP_MIN_CELLS = 0.5
 
 GDAL_TYPES = {
     "uint8": "Byte", "int8": "Int8", "uint16": "UInt16", "int16": "Int16", "uint32": "UInt32",
@@ -239,9 +245,69 @@ def vrt_xml(crs_wkt: str, transform: tuple, width: int, height: int, dtype: str,
     return "\n".join(lines)
 
 
-def mosaic_vrt_text(paths: list[str], role: str) -> str:
-    """The VRT text of a mosaic of tiles (absolute source paths). Checks that every tile shares
-    the first tile's CRS, cell size, data type and cell edges."""
+@dataclass(frozen=True)
+class TileOverlaps:
+    """Overlapping tile pairs of a mosaic: how many, and the first pair in mosaic order with the
+    size of its overlap [cells of the mosaic grid]."""
+
+    pairs: int
+    first: tuple              # (earlier path, later path)
+    width_cells: float
+    height_cells: float
+
+
+def find_overlaps(infos: list[TileInfo]) -> TileOverlaps | None:
+    """Pairs of tiles whose bounds overlap by at least ``OVERLAP_MIN_CELLS`` in both directions,
+    measured in cells of the first tile's grid; None when no pair does. Reads no pixel."""
+    if len(infos) < 2:
+        return None
+    xres, yres = infos[0].transform[0], -infos[0].transform[4]
+    left = np.array([i.transform[2] for i in infos]) / xres                    # cells
+    right = left + np.array([i.width for i in infos])
+    top = -np.array([i.transform[5] for i in infos]) / yres                    # cells, downwards
+    bottom = top + np.array([i.height for i in infos])
+    order = np.argsort(left, kind="stable")
+    sorted_left = left[order]
+    pairs, first = 0, None
+    for k, i in enumerate(order):
+        # sweep over the tiles sorted by left edge: only those starting before tile i ends
+        stop = np.searchsorted(sorted_left, right[i] - OVERLAP_MIN_CELLS, side="left")
+        others = order[k + 1:stop]
+        if others.size == 0:
+            continue
+        wide = np.minimum(right[i], right[others]) - np.maximum(left[i], left[others])
+        high = np.minimum(bottom[i], bottom[others]) - np.maximum(top[i], top[others])
+        hit = (wide >= OVERLAP_MIN_CELLS) & (high >= OVERLAP_MIN_CELLS)
+        pairs += int(np.count_nonzero(hit))
+        for j, w, h in zip(others[hit], wide[hit], high[hit]):
+            pair = (min(i, j), max(i, j))
+            if first is None or pair < first[0]:
+                first = (pair, float(w), float(h))
+    if not pairs:
+        return None
+    (a, b), w, h = first
+    return TileOverlaps(pairs, (infos[a].path, infos[b].path), w, h)
+
+
+def _tile_name(path: str) -> str:
+    return Path(path).name or str(path)
+
+
+def warn_overlaps(overlaps: TileOverlaps, role: str, order: str = "name order") -> None:
+    """One ``MosaicOverlapWarning`` line for a mosaic whose tiles overlap."""
+    earlier, later = overlaps.first
+    warnings.warn(MosaicOverlapWarning(
+        f"{role} mosaic: {overlaps.pairs} tile pair(s) overlap, first {_tile_name(earlier)} and "
+        f"{_tile_name(later)} by {overlaps.width_cells:.0f} x {overlaps.height_cells:.0f} cells (columns x rows); in an overlap "
+        f"the later file in {order} ({_tile_name(later)}) wins where it holds data; give non-overlapping "
+        "tiles or a VRT to choose otherwise"), stacklevel=3)
+
+
+def mosaic_vrt_text(paths: list[str], role: str, order: str = "name order") -> str:
+    """The VRT text of a mosaic of tiles (absolute source paths, later ones drawn over earlier
+    ones). Checks that every tile shares the first tile's CRS, cell size, data type and cell
+    edges, and warns once (``MosaicOverlapWarning``) when tiles overlap; ``order`` names the
+    order of ``paths`` in that warning."""
     from rasterio.crs import CRS
 
     infos = [read_tile_info(p, role) for p in paths]
@@ -276,6 +342,9 @@ def mosaic_vrt_text(paths: list[str], role: str) -> str:
                 f"{col:.4f}, {row:.4f} cells); warp the tiles to a common grid"
             )
         offsets.append((int(round(col)), int(round(row))))
+    overlaps = find_overlaps(infos)
+    if overlaps is not None:
+        warn_overlaps(overlaps, role, order)
     width = max(c + i.width for (c, _), i in zip(offsets, infos))
     height = max(r + i.height for (_, r), i in zip(offsets, infos))
     nodatas = [i.nodata for i in infos]
@@ -338,7 +407,8 @@ def write_mosaic_vrt(spec: str, role: str, dest) -> str:
     kind = mosaic_kind(spec)
     if kind in ("file", "vrt"):
         return str(spec)
-    text = mosaic_vrt_text(expand_tiles(spec, role), role)
+    order = "the list's order" if kind == "list" else "name order"
+    text = mosaic_vrt_text(expand_tiles(spec, role), role, order)
     dest = Path(dest)
     dest.parent.mkdir(parents=True, exist_ok=True)
     write_text_atomic(dest, text)
