@@ -222,3 +222,31 @@ def test_mostly_zero_runoff_and_ignored_elevation_are_warned(map_inputs, tmp_pat
     with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
         rate = ds.read(1)
     assert np.nanmax(rate) == 0.0
+
+
+def test_grid_bounds_default_shown_by_check_and_job_file(map_inputs, tmp_path):
+    # lithology 100 m cells in EPSG:32632; on a 250 m EPSG:3035 grid its extent snaps outward to
+    # (4144500, 2646500, 4150500, 2651000), derived with pyproj in test_map.py
+    args = base_args(map_inputs, tmp_path / "out") + ["--grid-crs", "EPSG:3035", "--grid-resolution", "250"]
+    args[0] = "check"
+    result = invoke(args)
+    assert result.exit_code == 0, result.output
+    assert "target grid: 24 x 18 cells, EPSG:3035, resolution 250 x 250, bounds (4144500, 2646500, 4150500, 2651000)" in result.stdout
+    assert ("note: target grid bounds (4144500, 2646500, 4150500, 2651000): the lithology raster's extent in "
+            "EPSG:3035, snapped outward to whole 250 x 250 cells") in result.stdout
+    p = map_inputs["paths"]
+    job = tmp_path / "job.toml"
+    job.write_text(f'[inputs]\nlithology = "{p["lithology"].name}"\nrunoff = 500\npco2 = 0.01\ntemperature = 10\n'
+                   '[grid]\ncrs = "EPSG:3035"\nresolution = 250\n[run]\nout = "out"\n')
+    result = invoke(["map", "--job", job, "--dry-run"])
+    assert result.exit_code == 0, result.output
+    assert "bounds (4144500, 2646500, 4150500, 2651000)" in result.stdout
+    assert leftovers(tmp_path) == []
+
+
+def test_grid_bounds_alone_is_an_error(map_inputs, tmp_path):
+    args = base_args(map_inputs, tmp_path / "out") + ["--grid-bounds", "400000 5196000 405600 5200000"]
+    assert_one_line_error(invoke(args), "--grid-crs and --grid-resolution", "add")
+    args = base_args(map_inputs, tmp_path / "out") + ["--grid-crs", "EPSG:3035"]
+    assert_one_line_error(invoke(args), "add --grid-resolution")
+    assert leftovers(tmp_path) == []

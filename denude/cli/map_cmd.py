@@ -49,7 +49,7 @@ def map_options(
     grid_like: Annotated[Optional[str], typer.Option(help="Use this raster's grid as the target grid.")] = None,
     grid_crs: Annotated[Optional[str], typer.Option(help="Target grid CRS, e.g. EPSG:3035.")] = None,
     grid_resolution: Annotated[Optional[str], typer.Option(help="Target cell size in CRS units: 'R' or 'X Y'.")] = None,
-    grid_bounds: Annotated[Optional[str], typer.Option(help="Target bounds 'LEFT BOTTOM RIGHT TOP' in CRS units.")] = None,
+    grid_bounds: Annotated[Optional[str], typer.Option(help="Target bounds 'LEFT BOTTOM RIGHT TOP' in CRS units (default: the lithology extent, snapped outward to whole cells).")] = None,
     chemistry: Annotated[Optional[str], typer.Option(help="white (closed form) or speciated.")] = None,
     workers: Annotated[Optional[int], typer.Option(help="Worker threads (default 2).")] = None,
     block_size: Annotated[Optional[int], typer.Option(help="Block and output tile size, cells (default 512).")] = None,

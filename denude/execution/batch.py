@@ -708,11 +708,13 @@ def run_batch(
             for k, v in (manifest.tiles.get(t.id, {}).get("counts") or {}).items():
                 counts[k] = counts.get(k, 0) + int(v)
         wall = time.perf_counter() - started
+        from denude.execution.raster_job import grid_source
+
         record = {
             "tool": "denude", "version": denude.__version__, "command": "batch",
             "settings": settings.as_dict(),
             "resolved_inputs": {f: getattr(resolved, f) for f in RASTER_FIELDS if getattr(resolved, f) != getattr(settings, f)},
-            "grid": grid.as_dict(), "tile_size": size, "tiles": len(tiles),
+            "grid": grid.as_dict(), "grid_source": grid_source(resolved), "tile_size": size, "tiles": len(tiles),
             "tiles_done": len(done), "tiles_run": total, "tiles_skipped": skipped,
             "tiles_failed": dict(sorted(failed.items())), "engine": engine_name,
             "counts": counts, "outputs": outputs + [MANIFEST_NAME, RUN_JSON, TILES_DIR + "/"],

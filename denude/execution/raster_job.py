@@ -41,7 +41,7 @@ from denude.core.rocks import RockTable
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
 from denude.errors import CoverageWarning, DenudeWarning, GridError, InputError, OutputError
 from denude.execution.blocks import block_windows
-from denude.io.grid import Grid, parse_crs
+from denude.io.grid import Grid, check_resolution, parse_crs, snap_bounds_outward
 from denude.io.jobfile import LAYERS, MapSettings, is_constant
 from denude.io.rasters import (
     INT32_NODATA,
@@ -52,6 +52,7 @@ from denude.io.rasters import (
     WarpPlan,
     choose_layout,
     file_sha256,
+    footprint_in_crs,
     inspect_raster,
     open_raster,
     overlap_fraction,
@@ -178,15 +179,34 @@ def load_rocks(settings: MapSettings) -> RockTable:
 
 
 def resolve_grid(settings: MapSettings) -> Grid:
-    """The target grid: --grid-like raster, CRS + resolution + bounds, or the lithology grid."""
+    """The target grid: --grid-like raster, CRS + resolution (+ bounds), or the lithology grid.
+    Without bounds, the lithology raster's extent in the target CRS (densified edges), snapped
+    outward to whole cells with the origin on multiples of the resolution."""
     if settings.grid_crs is not None:
-        return Grid.from_bounds(parse_crs(settings.grid_crs, "--grid-crs"), settings.grid_resolution, settings.grid_bounds)
+        crs = parse_crs(settings.grid_crs, "--grid-crs")
+        bounds = settings.grid_bounds
+        if bounds is None:
+            res = check_resolution(settings.grid_resolution)
+            bounds = snap_bounds_outward(footprint_in_crs(settings.lithology, "lithology", crs), res)
+        return Grid.from_bounds(crs, settings.grid_resolution, bounds)
     path = settings.grid_like or settings.lithology
     role = "grid" if settings.grid_like else "lithology"
     with open_raster(path, role) as ds:
         if ds.crs is None:
             raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
         return Grid.from_dataset(ds)
+
+
+def grid_source(settings: MapSettings) -> str:
+    """Where the target grid comes from, in words (for `denude check` and run.json)."""
+    if settings.grid_like:
+        return f"the grid of {settings.grid_like}"
+    if settings.grid_crs is None:
+        return f"the grid of the lithology raster {settings.lithology}"
+    if settings.grid_bounds is not None:
+        return "--grid-crs, --grid-resolution and --grid-bounds as given"
+    return ("--grid-crs and --grid-resolution; bounds = the lithology raster's extent in that CRS, "
+            "snapped outward to whole cells (origin on multiples of the resolution)")
 
 
 def raster_roles(settings: MapSettings) -> dict[str, str]:
@@ -476,6 +496,11 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         check_outputs(settings, roles)
     grid = resolve_grid(settings)
     report = JobReport(settings, grid, rocks, layout=choose_layout(settings.layout, grid))
+    if settings.grid_crs is not None and settings.grid_bounds is None:
+        l, b, r, t = grid.bounds
+        report.notes.append(
+            f"target grid bounds ({l:.12g}, {b:.12g}, {r:.12g}, {t:.12g}): the lithology raster's extent in "
+            f"{grid.crs_label()}, snapped outward to whole {grid.res[0]:.12g} x {grid.res[1]:.12g} cells")
     # constants first: cheap
     for role in ("runoff", "precipitation", "aet", "pco2", "temperature", "soluble_fraction", "elevation"):
         value = settings.pco2 if role == "pco2" else getattr(settings, role)
@@ -722,6 +747,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
             "settings": settings.as_dict(),
             "inputs": _input_records(settings, report, hashes),
             "grid": grid.as_dict(),
+            "grid_source": grid_source(settings),
             "layout": report.layout,
             "block_size": settings.block_size,
             "blocks": len(windows),

@@ -17,10 +17,11 @@ relative paths resolve against the job file's folder)::
     soluble_fraction = 1.0             # soluble-area fraction of each cell, 0-1
 
     [grid]                             # default: the lithology raster's grid
-    like = "other.tif"                 # or crs + resolution + bounds:
+    like = "other.tif"                 # or crs + resolution (+ bounds):
     crs = "EPSG:3035"
     resolution = 1000.0                # CRS units; one number or [x, y]
-    bounds = [left, bottom, right, top]
+    bounds = [left, bottom, right, top]  # CRS units; default: the lithology extent in crs,
+                                       # snapped outward to multiples of the resolution
 
     [run]
     out = "out"
@@ -200,8 +201,13 @@ def check_settings(s: MapSettings) -> None:
     if any(p is not None for p in grid_parts):
         if s.grid_like is not None:
             raise InputError(f"{where}give --grid-like or --grid-crs/--grid-resolution/--grid-bounds, not both")
-        if any(p is None for p in grid_parts):
-            raise InputError(f"{where}a target grid needs all of --grid-crs, --grid-resolution and --grid-bounds")
+        missing = [name for name, value in (("--grid-crs", s.grid_crs), ("--grid-resolution", s.grid_resolution))
+                   if value is None]
+        if missing:
+            raise InputError(
+                f"{where}a target grid needs both --grid-crs and --grid-resolution; add {' and '.join(missing)} "
+                "(--grid-bounds is optional: default the lithology extent)"
+            )
     if not (isinstance(s.workers, int) and 1 <= s.workers <= 256):
         raise InputError(f"{where}workers {s.workers!r} must be an integer from 1 to 256")
     if not (isinstance(s.gdal_cache_mb, int) and 16 <= s.gdal_cache_mb <= 65536):

@@ -128,13 +128,39 @@ def inspect_raster(path, role: str) -> RasterInfo:
         )
 
 
+#: Points added along each edge when projecting an extent (curved edges in the target CRS).
+DENSIFY_POINTS = 21
+
+
+def footprint_in_crs(path, role: str, crs) -> tuple[float, float, float, float]:
+    """A raster's bounds (left, bottom, right, top) transformed into ``crs`` [its units], with
+    densified edges. No CRS, an extent that cannot be projected, or one that wraps around the
+    antimeridian in ``crs`` is a one-line GridError."""
+    with open_raster(path, role) as ds:
+        if ds.crs is None:
+            raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
+        src_crs, src_bounds = ds.crs, tuple(ds.bounds)
+    if src_crs == crs:
+        return src_bounds
+    try:
+        left, bottom, right, top = transform_bounds(src_crs, crs, *src_bounds, densify_pts=DENSIFY_POINTS)
+    except Exception:  # projection failures depend on PROJ
+        left = bottom = right = top = math.nan
+    if not all(math.isfinite(v) for v in (left, bottom, right, top)) or right <= left or top <= bottom:
+        raise GridError(
+            f"{role} raster {path}: its extent cannot be projected to the target CRS as one box "
+            "(outside the CRS's area, or across the antimeridian); give --grid-bounds"
+        )
+    return (left, bottom, right, top)
+
+
 def footprint_on(info: RasterInfo, grid: Grid) -> tuple[float, float, float, float]:
     """An input's bounds in the target CRS (densified edges)."""
     src = info.grid
     if src.crs == grid.crs:
         return src.bounds
     try:
-        return transform_bounds(src.crs, grid.crs, *src.bounds, densify_pts=21)
+        return transform_bounds(src.crs, grid.crs, *src.bounds, densify_pts=DENSIFY_POINTS)
     except Exception:  # pragma: no cover - projection failures depend on PROJ
         raise GridError(
             f"{info.role} raster {info.path}: its extent cannot be projected to the target CRS; "
