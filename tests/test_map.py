@@ -341,3 +341,45 @@ def test_grid_bounds_default_in_degrees(map_inputs):
     assert (xs.min(), ys.min(), xs.max(), ys.max()) == pytest.approx((7.68597, 46.91000, 7.76037, 46.94681), abs=1e-5)
     assert grid.bounds == pytest.approx((7.68, 46.91, 7.77, 46.95), abs=1e-12)
     assert (grid.width, grid.height) == (9, 4)
+
+
+@pytest.fixture
+def negative_runoff(map_inputs, make_raster):
+    """The job's runoff with a 4 x 5 block of -50 mm/yr cells (all on valid lithology) and one
+    -50 cell on lithology nodata (row 0, column 2): 20 map cells with negative runoff."""
+    runoff = map_inputs["runoff"].copy()
+    runoff[10:14, 20:25] = -50.0
+    runoff[0, 2] = -50.0
+    assert (map_inputs["codes"][10:14, 20:25] >= 0).all() and map_inputs["codes"][0, 2] == -1
+    return runoff, make_raster("runoff_negative.tif", runoff, nodata=-9999.0)
+
+
+def test_negative_runoff_zero_takes_them_as_zero_and_counts_them(map_inputs, negative_runoff, tmp_path):
+    runoff, path = negative_runoff
+    out = tmp_path / "out"
+    with pytest.warns(denude.errors.DenudeWarning, match="^20 map cells had negative runoff"):
+        summary = run_map(settings_for(map_inputs, out, runoff=str(path), negative_runoff="zero"))
+    assert summary.counts.negative_runoff == 20
+    rate = read(out, "denudation_mm_per_kyr.tif")
+    block = rate[10:14, 20:25]
+    assert np.isfinite(block).all() and (block == 0.0).all()          # no dissolution, not nodata
+    assert np.isfinite(read(out, "dissolved_load_mmol_per_l.tif")[10:14, 20:25]).all()
+    # everywhere else the map equals the kernel on the runoff with those cells set to 0 mm/yr
+    codes = map_inputs["codes"]
+    q = np.where(runoff == -9999.0, np.nan, np.where(runoff < 0, 0.0, runoff))
+    expected = compute_block(codes.astype(np.int32), f64(q), f64(map_inputs["pco2"]), f64(map_inputs["temperature"]),
+                             RockTable.builtin().lookup(), lithology_valid=codes != -1, warn=False)
+    assert_same(rate, expected.denudation_mm_per_kyr)
+    record = json.loads((out / "run.json").read_text())
+    assert record["settings"]["negative_runoff"] == "zero"
+    assert record["counts"]["negative_runoff"] == 20
+
+
+def test_negative_runoff_error_is_the_default_and_names_the_option(map_inputs, negative_runoff, tmp_path):
+    _, path = negative_runoff
+    out = tmp_path / "out"
+    with pytest.raises(denude.errors.InputError, match=r"runoff value -50 .*--negative-runoff zero"):
+        run_map(settings_for(map_inputs, out, runoff=str(path)))
+    assert not out.exists() and not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+    with pytest.raises(denude.errors.InputError, match="did you mean 'zero'"):
+        settings_for(map_inputs, out, runoff=str(path), negative_runoff="zer")

@@ -250,3 +250,31 @@ def test_grid_bounds_alone_is_an_error(map_inputs, tmp_path):
     args = base_args(map_inputs, tmp_path / "out") + ["--grid-crs", "EPSG:3035"]
     assert_one_line_error(invoke(args), "add --grid-resolution")
     assert leftovers(tmp_path) == []
+
+
+def test_negative_runoff_option_and_job_key(map_inputs, make_raster, tmp_path):
+    runoff = map_inputs["runoff"].copy()
+    runoff[20:22, 30:33] = -5.0                                   # 6 cells on valid lithology
+    path = make_raster("runoff_neg.tif", runoff, nodata=-9999.0)
+    args = base_args(map_inputs, tmp_path / "out")
+    args[args.index("--runoff") + 1] = path
+    line = assert_one_line_error(invoke(args), "runoff_neg.tif", "-5", "--negative-runoff zero")
+    assert "negative_runoff" in line                              # and the job-file key
+    assert leftovers(tmp_path) == []
+    result = invoke(args + ["--negative-runoff", "zero", "--quiet"])
+    assert result.exit_code == 0, result.output
+    warnings = [w for w in result.stderr.splitlines() if w.startswith("denude: warning:")]
+    assert warnings == ["denude: warning: 6 map cells had negative runoff and were taken as 0 mm/yr (no dissolution; "
+                        "--negative-runoff zero); check the runoff input if that many is unexpected"]
+    with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
+        assert (ds.read(1)[20:22, 30:33] == 0.0).all()
+    p = map_inputs["paths"]
+    job = tmp_path / "job.toml"
+    job.write_text(f'[inputs]\nlithology = "{p["lithology"].name}"\nrunoff = "{path.name}"\npco2 = "{p["pco2"].name}"\n'
+                   f'temperature = "{p["temperature"].name}"\n[run]\nout = "out2"\nnegative_runoff = "zero"\n')
+    result = invoke(["check", "--job", job])
+    assert result.exit_code == 0, result.output
+    assert "note: runoff raster" in result.stdout and "down to -5 mm/yr" in result.stdout
+    result = invoke(["map", "--job", job, "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert json.loads((tmp_path / "out2" / "run.json").read_text())["counts"]["negative_runoff"] == 6

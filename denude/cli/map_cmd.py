@@ -59,6 +59,7 @@ def map_options(
     compress: Annotated[Optional[str], typer.Option(help="deflate or zstd.")] = None,
     lithology_resampling: Annotated[Optional[str], typer.Option(help="auto, nearest or mode (bilinear is refused).")] = None,
     continuous_resampling: Annotated[Optional[str], typer.Option(help="auto, bilinear, cubic, average or nearest.")] = None,
+    negative_runoff: Annotated[Optional[str], typer.Option(help="Negative runoff cells: error (default) or zero (taken as 0 mm/yr, counted in a warning).")] = None,
     job: Annotated[Optional[Path], typer.Option(help="TOML job file with the same settings; flags override it.")] = None,
 ):
     """Shared options of `denude map` and `denude check` (signature only)."""

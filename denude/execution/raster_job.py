@@ -36,7 +36,7 @@ from denude.core.constants import MINERAL_INDEX
 from denude.core.dissolution import warn_out_of_range
 from denude.core.hazard import DEFAULT_COLOURS, HAZARD_NODATA, classify
 from denude.core.kernel import BlockCounts, compute_block
-from denude.core.rates import runoff_from_water_balance_mm_per_yr
+from denude.core.rates import runoff_from_water_balance_mm_per_yr, zero_negative_runoff_mm_per_yr
 from denude.core.rocks import RockTable
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
 from denude.errors import CoverageWarning, DenudeWarning, GridError, InputError, OutputError
@@ -94,7 +94,7 @@ MIN_PLAUSIBLE_MAX_MM_PER_YR = 5.0
 #: Plausible value bands per input: role -> (low, high, fix when outside). Values outside
 #: usually mean wrong units; these are screening limits (common practice, no source).
 PLAUSIBLE = {
-    "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month); set negative cells to nodata"),
+    "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month)"),
     "precipitation": (0.0, 20000.0, "give precipitation in mm/yr"),
     "aet": (0.0, 5000.0, "give actual evapotranspiration in mm/yr"),
     "temperature": (-70.0, 60.0, "give temperature in degrees C (not kelvin or tenths of a degree)"),
@@ -104,6 +104,36 @@ PLAUSIBLE = {
     "pco2:ppmv": (1.0, 1e6, "values below 1 ppmv look like atm: use --pco2-units atm"),
     "pco2:log10atm": (-6.0, 0.0, "give log10 of PCO2 in atm (e.g. -2), or use --pco2-units atm"),
 }
+
+#: The fix named when runoff has negative cells under the default --negative-runoff error.
+NEGATIVE_RUNOFF_FIX = (
+    "negative runoff usually means wrong units or a water-balance residual: set those cells to nodata, "
+    "or use --negative-runoff zero (job file [run] negative_runoff = \"zero\") to take them as 0 mm/yr"
+)
+
+
+def band_text(low: float, high: float) -> str:
+    """'the plausible range LOW to HIGH' (or 'the plausible limit HIGH' without a lower bound)."""
+    return f"the plausible limit {high:g}" if low == -math.inf else f"the plausible range {low:g} to {high:g}"
+
+
+def implausible(role: str, settings: MapSettings, low_value: float, high_value: float):
+    """(offending value, band low, band high, fix, unit) when [low_value, high_value] leaves the
+    plausible band of ``role`` under these settings, else None. With --negative-runoff zero,
+    runoff has no lower bound (negative cells become 0 mm/yr)."""
+    key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
+    if key not in PLAUSIBLE:
+        return None
+    low, high, fix = PLAUSIBLE[key]
+    if role == "runoff" and settings.negative_runoff == "zero":
+        low = -math.inf
+    if low_value >= low and high_value <= high:
+        return None
+    bad = low_value if low_value < low else high_value
+    if role == "runoff" and bad < 0:
+        fix = NEGATIVE_RUNOFF_FIX
+    unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
+    return bad, low, high, fix, unit
 
 
 # ----------------------------------------------------------------------- layer descriptions
@@ -331,8 +361,11 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
         codes = readers.read("lithology", window)
         valid = codes != INT32_NODATA
         aet = _value(readers, settings, "aet", window, ranges)
+        negative = 0
         if settings.runoff is not None:
             runoff = _value(readers, settings, "runoff", window, ranges)
+            if settings.negative_runoff == "zero":
+                runoff, negative = zero_negative_runoff_mm_per_yr(runoff, counted=valid)
         else:
             runoff = runoff_from_water_balance_mm_per_yr(
                 _value(readers, settings, "precipitation", window, ranges), aet)
@@ -345,6 +378,7 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
     lookup = plan.rocks.lookup()
     result = compute_block(codes, runoff, pco2, temperature, lookup, settings.chemistry,
                            soluble_fraction=fraction, lithology_valid=valid, warn=False)
+    result.counts.negative_runoff = negative
     wanted = set(layers or settings.layers)
     row = lookup.row_index(codes)
     known = valid & (row >= 0)
@@ -399,35 +433,28 @@ class JobReport:
     notes: list = field(default_factory=list)
 
 
-def _plausibility_key(role: str, settings: MapSettings) -> str:
-    return f"pco2:{settings.pco2_units}" if role == "pco2" else role
-
-
 def _check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings,
                  whole: bool = True) -> None:
     """Raise a one-line error when values are implausible. ``whole``: the range covers the whole
     input (a constant or a raster-wide scan), not one window, so unit heuristics apply."""
-    key = _plausibility_key(role, settings)
-    if key not in PLAUSIBLE:
+    found = implausible(role, settings, low_value, high_value)
+    if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
+        raise InputError(
+            f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
+            f"like m/yr: give {role} in mm/yr (multiply by 1000)"
+        )
+    if found is None:
         return
-    low, high, fix = PLAUSIBLE[key]
+    bad, low, high, fix, unit = found
     if role == "temperature" and high_value > 200:
         fix = "values look like kelvin; convert to degrees C (subtract 273.15)"
     if role == "soluble_fraction" and 1 < high_value <= 100:
         fix = "values look like percent; divide by 100"
     if role == "pco2" and settings.pco2_units == "atm" and high_value <= 0 and low_value >= -6:
         fix = "values look like log10 atm: use --pco2-units log10atm"
-    if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
-        raise InputError(
-            f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
-            f"like m/yr: give {role} in mm/yr (multiply by 1000)"
-        )
-    if low_value < low or high_value > high:
-        bad = low_value if low_value < low else high_value
-        unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
-        raise InputError(
-            f"{where}: {role} value {bad:g} is outside the plausible range {low:g} to {high:g} {unit}; {fix}"
-        )
+    raise InputError(
+        f"{where}: {role} value {bad:g} is outside {band_text(low, high)} {unit}; {fix}"
+    )
 
 
 def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
@@ -513,6 +540,8 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
     if settings.pco2_from_aet:
         report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
+    if is_constant(settings.runoff) and settings.runoff < 0:
+        report.notes.append(f"runoff {settings.runoff:g} mm/yr is negative: taken as 0 mm/yr (--negative-runoff zero)")
     if settings.pco2_units != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
         warnings.warn(DenudeWarning(
             f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings.pco2_units}"),
@@ -541,6 +570,9 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
             if n:
                 item.value_min, item.value_max = lo, hi
                 _check_range(role, f"{role} raster {path}", lo, hi, settings)
+                if role == "runoff" and lo < 0:
+                    report.notes.append(f"runoff raster {path} has negative values (down to {lo:g} mm/yr); "
+                                        "they will be taken as 0 mm/yr (--negative-runoff zero)")
         report.inputs[role] = item
     lithology_is_float = not np.issubdtype(np.dtype(report.inputs["lithology"].info.dtype), np.integer)
     if not scan and not lithology_is_float:
@@ -561,6 +593,11 @@ def warn_about_counts(counts: dict) -> None:
     """One-line warnings a finished run owes its user: cells out of the constants' range, and a
     map that is mostly zero because runoff is <= 0 (P < AET, or swapped inputs)."""
     warn_out_of_range(counts.get("out_of_range", 0))
+    negative = counts.get("negative_runoff", 0)
+    if negative:
+        warnings.warn(DenudeWarning(
+            f"{negative} map cells had negative runoff and were taken as 0 mm/yr (no dissolution; "
+            "--negative-runoff zero); check the runoff input if that many is unexpected"), stacklevel=2)
     computed, zero = counts.get("computed", 0), counts.get("zero_runoff", 0)
     if computed and zero >= ZERO_RUNOFF_WARN_SHARE * computed:
         warnings.warn(DenudeWarning(

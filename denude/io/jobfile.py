@@ -35,6 +35,7 @@ relative paths resolve against the job file's folder)::
     compress = "deflate"               # deflate | zstd
     lithology_resampling = "auto"      # auto | nearest | mode
     continuous_resampling = "auto"     # auto | bilinear | cubic | average | nearest
+    negative_runoff = "error"          # error | zero (negative runoff cells taken as 0 mm/yr)
 
     [hazard]
     breaks_mm_per_kyr = [5, 20, 50, 150]
@@ -61,6 +62,8 @@ from denude.errors import DenudeError, InputError, JobFileError
 PCO2_FROM_AET = "from-aet"
 PCO2_UNITS = ("atm", "ppmv", "log10atm")
 CHEMISTRIES = ("white", "speciated")
+#: What negative runoff cells are: a user error, or 0 mm/yr (no dissolution, counted in a warning).
+NEGATIVE_RUNOFF = ("error", "zero")
 
 #: Output layers selectable with --layers: short name -> file name.
 LAYERS = {
@@ -88,6 +91,7 @@ SECTIONS = {
         "layout": "layout", "compress": "compress",
         "lithology_resampling": "lithology_resampling",
         "continuous_resampling": "continuous_resampling",
+        "negative_runoff": "negative_runoff",
     },
     "hazard": {"breaks_mm_per_kyr": "hazard_breaks_mm_per_kyr", "names": "hazard_names"},
 }
@@ -129,6 +133,7 @@ class MapSettings:
     compress: str = "deflate"
     lithology_resampling: str = "auto"
     continuous_resampling: str = "auto"
+    negative_runoff: str = "error"              # NEGATIVE_RUNOFF
     hazard_breaks_mm_per_kyr: tuple = DEFAULT_BREAKS_MM_PER_KYR
     hazard_names: tuple = DEFAULT_CLASS_NAMES
     job_file: str | None = None
@@ -175,6 +180,7 @@ def check_settings(s: MapSettings) -> None:
     where = f"job file {s.job_file}: " if s.job_file else ""
     _choice(s.chemistry, CHEMISTRIES, f"{where}chemistry")
     _choice(s.pco2_units, PCO2_UNITS, f"{where}pco2 units")
+    _choice(s.negative_runoff, NEGATIVE_RUNOFF, f"{where}negative runoff handling")
     for layer in s.layers:
         _choice(layer, tuple(LAYERS), f"{where}layer")
     if not s.layers:
@@ -338,7 +344,8 @@ def _coerce(name: str, value, base: Path | None, where: str):
             return tuple(float(v) for v in value)
         if name == "hazard_names":
             return tuple(str(v) for v in value)
-        if name in ("chemistry", "pco2_units", "layout", "compress", "lithology_resampling", "continuous_resampling"):
+        if name in ("chemistry", "pco2_units", "layout", "compress", "lithology_resampling", "continuous_resampling",
+                    "negative_runoff"):
             return str(value).strip().lower()
     except DenudeError:
         raise
