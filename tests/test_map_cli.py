@@ -278,3 +278,45 @@ def test_negative_runoff_option_and_job_key(map_inputs, make_raster, tmp_path):
     result = invoke(["map", "--job", job, "--quiet"])
     assert result.exit_code == 0, result.output
     assert json.loads((tmp_path / "out2" / "run.json").read_text())["counts"]["negative_runoff"] == 6
+
+
+@pytest.fixture
+def zipped_inputs(map_inputs, tmp_path):
+    """The job's runoff and temperature GeoTIFFs stored in a zip archive built here (offline)."""
+    import zipfile
+
+    archive = tmp_path / "inputs.zip"
+    with zipfile.ZipFile(archive, "w") as zf:
+        for role in ("runoff", "temperature"):
+            zf.write(map_inputs["paths"][role], f"fields/{role}.tif")
+    return archive
+
+
+def test_virtual_paths_are_read_through_gdal(map_inputs, zipped_inputs, tmp_path):
+    local = tmp_path / "local"
+    assert invoke(base_args(map_inputs, local) + ["--quiet"]).exit_code == 0
+    args = base_args(map_inputs, tmp_path / "out") + ["--quiet"]
+    runoff = f"/vsizip/{zipped_inputs}/fields/runoff.tif"       # '/vsizip//abs/inputs.zip/...'
+    args[args.index("--runoff") + 1] = runoff
+    args[args.index("--temperature") + 1] = f"/vsizip/{{{zipped_inputs}}}/fields/temperature.tif"
+    result = invoke(args)
+    assert result.exit_code == 0, result.output
+    for name in ("denudation_mm_per_kyr.tif", "hazard_class.tif"):
+        with rasterio.open(local / name) as a, rasterio.open(tmp_path / "out" / name) as b:
+            assert a.read(1).tobytes() == b.read(1).tobytes()
+    record = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert record["settings"]["runoff"] == runoff                   # kept verbatim, '//' and all
+    assert record["inputs"]["runoff"]["path"] == runoff
+    assert record["inputs"]["runoff"]["sha256"] is None and record["inputs"]["runoff"]["size_bytes"] is None
+    assert record["inputs"]["runoff"]["width"] == 56
+
+
+@pytest.mark.parametrize("member", ["zip-missing-member", "vsimem"])
+def test_unopenable_virtual_path_is_one_line(map_inputs, zipped_inputs, tmp_path, member):
+    path = f"/vsizip/{zipped_inputs}/fields/nothing.tif" if member != "vsimem" else "/vsimem/denude-test/none.tif"
+    args = base_args(map_inputs, tmp_path / "out")
+    args[args.index("--runoff") + 1] = path
+    assert_one_line_error(invoke(args), path, "cannot be opened by GDAL", "check the address", "credentials")
+    args[0] = "check"
+    assert_one_line_error(invoke(args), path, "cannot be opened by GDAL")
+    assert leftovers(tmp_path) == []

@@ -43,6 +43,7 @@ from denude.errors import CoverageWarning, DenudeWarning, GridError, InputError,
 from denude.execution.blocks import block_windows
 from denude.io.grid import Grid, check_resolution, parse_crs, snap_bounds_outward
 from denude.io.jobfile import LAYERS, MapSettings, is_constant
+from denude.io.mosaic import is_virtual_path
 from denude.io.rasters import (
     INT32_NODATA,
     GridReader,
@@ -476,6 +477,8 @@ def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
     if settings.grid_like:
         paths["grid"] = settings.grid_like
     for role, path in paths.items():
+        if is_virtual_path(path):
+            continue
         p = Path(path).resolve()
         if p == out or out in p.parents:
             raise OutputError(
@@ -717,8 +720,9 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     windows = block_windows(grid.height, grid.width, settings.block_size)
     layers = [name for name in LAYERS if name in settings.layers]
 
-    hash_paths = sorted({item.info.path for item in report.inputs.values() if item.info is not None}
-                        | {p for p in (settings.rocks, settings.job_file) if p})
+    hash_paths = sorted({item.info.path for item in report.inputs.values()
+                         if item.info is not None and not is_virtual_path(item.info.path)}
+                        | {p for p in (settings.rocks, settings.job_file) if p})  # remote inputs: no checksum
     hashes: dict = {}
     hasher = threading.Thread(target=lambda: hashes.update({p: file_sha256(p) for p in hash_paths}), daemon=True)
     hasher.start()

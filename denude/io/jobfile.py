@@ -252,6 +252,10 @@ def _parse_value(value, field_name: str, base: Path | None):
 
 
 def _parse_path(value, base: Path | None) -> str:
+    """An absolute, normalised local path; GDAL virtual paths (/vsi...) are kept verbatim
+    (normalising would merge the '//' of '/vsicurl/https://...' or '/vsizip//abs/a.zip')."""
+    if str(value).startswith("/vsi"):
+        return str(value)
     path = Path(os.path.expanduser(str(value)))
     if not path.is_absolute():
         path = (base or Path.cwd()) / path

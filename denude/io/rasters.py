@@ -27,13 +27,14 @@ import numpy as np
 import rasterio
 import rasterio.shutil
 from rasterio.enums import Resampling
-from rasterio.errors import RasterioIOError
+from rasterio.errors import RasterioError, RasterioIOError
 from rasterio.vrt import WarpedVRT
 from rasterio.warp import transform_bounds
 from rasterio.windows import Window
 
 from denude.errors import GridError, InputError, OutputError
 from denude.io.grid import Grid
+from denude.io.mosaic import is_virtual_path
 
 INT32_NODATA = -2147483648
 
@@ -80,7 +81,7 @@ class RasterInfo:
     height: int
     dtype: str
     nodata: float | None
-    size_bytes: int
+    size_bytes: int | None          # None for GDAL virtual paths (/vsis3/, /vsicurl/, ...)
 
     @property
     def grid(self) -> Grid:
@@ -96,7 +97,18 @@ class RasterInfo:
 
 
 def open_raster(path, role: str):
-    """Open a raster for reading; a missing or unreadable file is a one-line InputError."""
+    """Open a raster for reading; a missing or unreadable file is a one-line InputError.
+    GDAL virtual paths (/vsis3/..., /vsicurl/..., /vsizip/...) are handed to GDAL as they are
+    (no local existence check); one GDAL cannot open is an InputError naming the path."""
+    if is_virtual_path(path):
+        text = str(path)
+        try:
+            return rasterio.open(text)
+        except (RasterioError, OSError):
+            raise InputError(
+                f"{role} raster {text} cannot be opened by GDAL; check the address (bucket, key, URL or "
+                "archive member) and the credentials in the environment (e.g. AWS_ACCESS_KEY_ID)"
+            ) from None
     path = Path(path)
     if not path.exists():
         raise InputError(f"{role} raster {path} not found; give the path of an existing GeoTIFF or a number")
@@ -124,7 +136,7 @@ def inspect_raster(path, role: str) -> RasterInfo:
             role=role, path=str(path), crs_wkt=ds.crs.to_wkt(), transform=tuple(ds.transform)[:6],
             width=ds.width, height=ds.height, dtype=ds.dtypes[0],
             nodata=None if ds.nodata is None else float(ds.nodata),
-            size_bytes=os.path.getsize(path),
+            size_bytes=None if is_virtual_path(path) else os.path.getsize(path),
         )
 
 
