@@ -17,7 +17,7 @@ from rasterio.transform import from_origin
 from typer.testing import CliRunner
 
 from denude.cli.main import app
-from denude.errors import OutputError
+from denude.errors import DenudeWarning, InputError, OutputError
 from denude.execution.batch import BatchError, TILES_DIR, ZoneSpec, run_batch
 from denude.execution.raster_job import run_map
 from denude.io.jobfile import LAYERS, build_settings
@@ -372,7 +372,7 @@ def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
     assert dry.exit_code == 0 and "tiles: 6 (2 x 3)" in dry.output and not out.exists()
     first = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert first.exit_code == 0, first.output
-    assert "6 tiles, 6 computed, 0 already done, 0 failed" in first.output
+    assert "6 tiles, 6 computed, 0 already done, 0 failed (in this process (1 worker))" in first.output
     assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "rocks.csv", "run.json", "tiles", ".batch.lock"])
     again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
@@ -446,3 +446,23 @@ def test_bad_zone_field_fails_before_any_tile(region, tmp_path):
     with pytest.raises(ZoneError, match="no field 'basin'"):
         run_batch(settings_for(region["paths"], out), TILE, workers=0, zones=ZoneSpec(str(path), None, "basin"))
     assert not (out / TILES_DIR).exists() or not any((out / TILES_DIR).iterdir())
+
+
+def test_negative_runoff_in_a_batch(region, tmp_path):
+    """Negative runoff cells in two tiles: refused by default, taken as 0 and counted with zero."""
+    with rasterio.open(region["paths"]["runoff"]) as ds:
+        runoff = ds.read(1)
+    runoff[30:34, 30:34] = -40.0                # 16 cells across tiles r000/r001 x c000/c001
+    lith = read(region["paths"]["lithology"])
+    assert (lith[30:34, 30:34] >= 0).all()
+    path = write_tif(tmp_path / "runoff_neg.tif", runoff, nodata=-9999.0)
+    paths = {**region["paths"], "runoff": path}
+    with pytest.raises(InputError, match="--negative-runoff zero"):
+        run_batch(settings_for(paths, tmp_path / "err"), TILE, workers=0)
+    out = tmp_path / "zero"
+    with pytest.warns(DenudeWarning, match="^16 map cells had negative runoff"):
+        summary = run_batch(settings_for(paths, out, negative_runoff="zero"), TILE, workers=0)
+    assert summary.ok and summary.counts["negative_runoff"] == 16
+    rate = read(out / "denudation_mm_per_kyr.vrt")
+    assert (rate[30:34, 30:34] == 0.0).all()
+    assert json.loads((out / "run.json").read_text())["settings"]["negative_runoff"] == "zero"

@@ -7,7 +7,7 @@ from rasterio.windows import Window
 
 from denude.errors import GridError, InputError
 from denude.execution.blocks import block_windows
-from denude.io.grid import Grid, parse_crs
+from denude.io.grid import Grid, parse_crs, snap_bounds_outward
 
 
 def test_from_bounds_extends_to_whole_cells():
@@ -17,6 +17,16 @@ def test_from_bounds_extends_to_whole_cells():
     assert grid.res == (100.0, 100.0)
     assert grid.bounds == (400000.0, 5199000.0, 401100.0, 5200000.0)
     assert grid.crs.to_epsg() == 32632
+
+
+def test_snap_bounds_outward_to_multiples_of_the_resolution():
+    # hand-derived: 1234.5 -> 1000, 5678.9 -> 6000 (down / up to 1000); 250 m in y
+    assert snap_bounds_outward((1234.5, -260.0, 5678.9, 740.0), (1000.0, 250.0)) == (1000.0, -500.0, 6000.0, 750.0)
+    # bounds already on the lattice stay put, also with floating-point noise from a projection
+    assert snap_bounds_outward((2000.0000000001, 0.0, 2999.9999999999, 500.0), (1000.0, 250.0)) == (
+        2000.0, 0.0, 3000.0, 500.0)
+    with pytest.raises(GridError, match="must be positive"):
+        snap_bounds_outward((0, 0, 1, 1), (0.0, 1.0))
 
 
 def test_window_transform_is_integer_offset():

@@ -97,7 +97,22 @@ def test_settings_checks(tmp_path):
         build_settings({**base, "lithology_resampling": "bilinear"})
     with pytest.raises(InputError, match="did you mean 'speciated'"):
         build_settings({**base, "chemistry": "speciatd"})
-    with pytest.raises(InputError, match="needs all of"):
+    with pytest.raises(InputError, match="add --grid-resolution"):
         build_settings({**base, "grid_crs": "EPSG:32632"})
+    with pytest.raises(InputError, match="add --grid-crs and --grid-resolution"):
+        build_settings({**base, "grid_bounds": [0, 0, 1000, 1000]})
+    s = build_settings({**base, "grid_crs": "EPSG:3035", "grid_resolution": 250})   # bounds optional
+    assert s.grid_bounds is None and s.grid_resolution == (250.0, 250.0)
     s = build_settings({"lithology": "l.tif", "temperature": 10, "precipitation": 900, "aet": 400})
     assert s.pco2 == PCO2_FROM_AET and s.precipitation == 900.0
+
+
+def test_virtual_paths_are_kept_verbatim(tmp_path):
+    job = write(tmp_path, '[inputs]\nlithology = "/vsizip//data/maps.zip/lith.tif"\n'
+                          'runoff = "/vsicurl/https://tiles.example.invalid/runoff.tif"\n'
+                          'pco2 = 0.01\ntemperature = 10\n')
+    s = build_settings(job_file=job)
+    assert s.lithology == "/vsizip//data/maps.zip/lith.tif"       # normalising would drop a '/'
+    assert s.runoff == "/vsicurl/https://tiles.example.invalid/runoff.tif"
+    s = build_settings({"lithology": "/vsis3/bucket/lith.tif", "temperature": 10, "runoff": 500, "pco2": 0.01})
+    assert s.lithology == "/vsis3/bucket/lith.tif"

@@ -76,6 +76,7 @@ def test_cell_rules_and_counts():
     assert np.isnan(rate[7])                   # lithology nodata
     assert r.counts.as_dict() == {
         "cells": 8, "computed": 3, "nodata": 2, "unknown_code": 1, "out_of_range": 2, "zero_runoff": 1,
+        "negative_runoff": 0,
     }
 
 

@@ -298,3 +298,88 @@ def test_log10_pco2_units(map_inputs, make_raster, tmp_path):
     exp = compute_block(codes.astype(np.int32), f64(runoff), 10.0 ** f64(log_pco2), f64(map_inputs["temperature"]),
                         RockTable.builtin().lookup(), lithology_valid=codes != -1, warn=False)
     assert_same(read(out, "denudation_mm_per_kyr.tif"), exp.denudation_mm_per_kyr)
+
+
+def _edge_points_in(crs_from, crs_to, bounds, n=1001):
+    """Every edge of a box sampled at n points, projected with pyproj (independent of rasterio)."""
+    from pyproj import Transformer
+
+    l, b, r, t = bounds
+    xs = np.concatenate([np.linspace(l, r, n), np.full(n, r), np.linspace(l, r, n), np.full(n, l)])
+    ys = np.concatenate([np.full(n, b), np.linspace(b, t, n), np.full(n, t), np.linspace(b, t, n)])
+    return Transformer.from_crs(crs_from, crs_to, always_xy=True).transform(xs, ys)
+
+
+def test_grid_bounds_default_to_the_lithology_extent_snapped_outward(map_inputs, tmp_path):
+    """Lithology: 56 x 40 cells of 100 m in EPSG:32632 from (400000, 5200000); target EPSG:3035 at 250 m."""
+    out = tmp_path / "laea"
+    settings = settings_for(map_inputs, out, grid_crs="EPSG:3035", grid_resolution=[250.0])
+    grid = resolve_grid(settings)
+    # Reference: the lithology's edges projected with pyproj (PROJ) at 1001 points per edge span
+    # x 4144651.57-4150310.41 m, y 2646725.73-2650804.28 m; rounded outward to 250 m by hand.
+    xs, ys = _edge_points_in("EPSG:32632", "EPSG:3035", (400000.0, 5196000.0, 405600.0, 5200000.0))
+    assert (xs.min(), ys.min(), xs.max(), ys.max()) == pytest.approx(
+        (4144651.57, 2646725.73, 4150310.41, 2650804.28), abs=0.01)
+    assert grid.bounds == (4144500.0, 2646500.0, 4150500.0, 2651000.0)
+    assert (grid.width, grid.height) == (24, 18)            # 6000 / 250, 4500 / 250
+    l, b, r, t = grid.bounds
+    assert l <= xs.min() and r >= xs.max() and b <= ys.min() and t >= ys.max()      # covers the footprint
+    assert max(xs.min() - l, ys.min() - b, r - xs.max(), t - ys.max()) < 250.0       # by less than a cell
+    with pytest.warns(denude.errors.CoverageWarning):   # the tilted footprint leaves bbox corners empty
+        summary = run_map(settings)
+    record = json.loads((out / "run.json").read_text())
+    assert record["grid"]["bounds"] == [4144500.0, 2646500.0, 4150500.0, 2651000.0]
+    assert record["settings"]["grid_bounds"] is None and "snapped outward" in record["grid_source"]
+    assert summary.counts.computed > 0.9 * 56 * 40 * (100 * 100) / (250 * 250)
+
+
+def test_grid_bounds_default_in_degrees(map_inputs):
+    """The same lithology on a 0.01 degree EPSG:4326 grid: bounds on multiples of 0.01."""
+    grid = resolve_grid(settings_for(map_inputs, "unused", grid_crs="EPSG:4326", grid_resolution=[0.01]))
+    xs, ys = _edge_points_in("EPSG:32632", "EPSG:4326", (400000.0, 5196000.0, 405600.0, 5200000.0))
+    # pyproj (PROJ): lon 7.68597-7.76037, lat 46.91000-46.94681 -> outward to 7.68, 46.91, 7.77, 46.95 (by hand)
+    assert (xs.min(), ys.min(), xs.max(), ys.max()) == pytest.approx((7.68597, 46.91000, 7.76037, 46.94681), abs=1e-5)
+    assert grid.bounds == pytest.approx((7.68, 46.91, 7.77, 46.95), abs=1e-12)
+    assert (grid.width, grid.height) == (9, 4)
+
+
+@pytest.fixture
+def negative_runoff(map_inputs, make_raster):
+    """The job's runoff with a 4 x 5 block of -50 mm/yr cells (all on valid lithology) and one
+    -50 cell on lithology nodata (row 0, column 2): 20 map cells with negative runoff."""
+    runoff = map_inputs["runoff"].copy()
+    runoff[10:14, 20:25] = -50.0
+    runoff[0, 2] = -50.0
+    assert (map_inputs["codes"][10:14, 20:25] >= 0).all() and map_inputs["codes"][0, 2] == -1
+    return runoff, make_raster("runoff_negative.tif", runoff, nodata=-9999.0)
+
+
+def test_negative_runoff_zero_takes_them_as_zero_and_counts_them(map_inputs, negative_runoff, tmp_path):
+    runoff, path = negative_runoff
+    out = tmp_path / "out"
+    with pytest.warns(denude.errors.DenudeWarning, match="^20 map cells had negative runoff"):
+        summary = run_map(settings_for(map_inputs, out, runoff=str(path), negative_runoff="zero"))
+    assert summary.counts.negative_runoff == 20
+    rate = read(out, "denudation_mm_per_kyr.tif")
+    block = rate[10:14, 20:25]
+    assert np.isfinite(block).all() and (block == 0.0).all()          # no dissolution, not nodata
+    assert np.isfinite(read(out, "dissolved_load_mmol_per_l.tif")[10:14, 20:25]).all()
+    # everywhere else the map equals the kernel on the runoff with those cells set to 0 mm/yr
+    codes = map_inputs["codes"]
+    q = np.where(runoff == -9999.0, np.nan, np.where(runoff < 0, 0.0, runoff))
+    expected = compute_block(codes.astype(np.int32), f64(q), f64(map_inputs["pco2"]), f64(map_inputs["temperature"]),
+                             RockTable.builtin().lookup(), lithology_valid=codes != -1, warn=False)
+    assert_same(rate, expected.denudation_mm_per_kyr)
+    record = json.loads((out / "run.json").read_text())
+    assert record["settings"]["negative_runoff"] == "zero"
+    assert record["counts"]["negative_runoff"] == 20
+
+
+def test_negative_runoff_error_is_the_default_and_names_the_option(map_inputs, negative_runoff, tmp_path):
+    _, path = negative_runoff
+    out = tmp_path / "out"
+    with pytest.raises(denude.errors.InputError, match=r"runoff value -50 .*--negative-runoff zero"):
+        run_map(settings_for(map_inputs, out, runoff=str(path)))
+    assert not out.exists() and not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+    with pytest.raises(denude.errors.InputError, match="did you mean 'zero'"):
+        settings_for(map_inputs, out, runoff=str(path), negative_runoff="zer")

@@ -222,3 +222,101 @@ def test_mostly_zero_runoff_and_ignored_elevation_are_warned(map_inputs, tmp_pat
     with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
         rate = ds.read(1)
     assert np.nanmax(rate) == 0.0
+
+
+def test_grid_bounds_default_shown_by_check_and_job_file(map_inputs, tmp_path):
+    # lithology 100 m cells in EPSG:32632; on a 250 m EPSG:3035 grid its extent snaps outward to
+    # (4144500, 2646500, 4150500, 2651000), derived with pyproj in test_map.py
+    args = base_args(map_inputs, tmp_path / "out") + ["--grid-crs", "EPSG:3035", "--grid-resolution", "250"]
+    args[0] = "check"
+    result = invoke(args)
+    assert result.exit_code == 0, result.output
+    assert "target grid: 24 x 18 cells, EPSG:3035, resolution 250 x 250, bounds (4144500, 2646500, 4150500, 2651000)" in result.stdout
+    assert ("note: target grid bounds (4144500, 2646500, 4150500, 2651000): the lithology raster's extent in "
+            "EPSG:3035, snapped outward to whole 250 x 250 cells") in result.stdout
+    p = map_inputs["paths"]
+    job = tmp_path / "job.toml"
+    job.write_text(f'[inputs]\nlithology = "{p["lithology"].name}"\nrunoff = 500\npco2 = 0.01\ntemperature = 10\n'
+                   '[grid]\ncrs = "EPSG:3035"\nresolution = 250\n[run]\nout = "out"\n')
+    result = invoke(["map", "--job", job, "--dry-run"])
+    assert result.exit_code == 0, result.output
+    assert "bounds (4144500, 2646500, 4150500, 2651000)" in result.stdout
+    assert leftovers(tmp_path) == []
+
+
+def test_grid_bounds_alone_is_an_error(map_inputs, tmp_path):
+    args = base_args(map_inputs, tmp_path / "out") + ["--grid-bounds", "400000 5196000 405600 5200000"]
+    assert_one_line_error(invoke(args), "--grid-crs and --grid-resolution", "add")
+    args = base_args(map_inputs, tmp_path / "out") + ["--grid-crs", "EPSG:3035"]
+    assert_one_line_error(invoke(args), "add --grid-resolution")
+    assert leftovers(tmp_path) == []
+
+
+def test_negative_runoff_option_and_job_key(map_inputs, make_raster, tmp_path):
+    runoff = map_inputs["runoff"].copy()
+    runoff[20:22, 30:33] = -5.0                                   # 6 cells on valid lithology
+    path = make_raster("runoff_neg.tif", runoff, nodata=-9999.0)
+    args = base_args(map_inputs, tmp_path / "out")
+    args[args.index("--runoff") + 1] = path
+    line = assert_one_line_error(invoke(args), "runoff_neg.tif", "-5", "--negative-runoff zero")
+    assert "negative_runoff" in line                              # and the job-file key
+    assert leftovers(tmp_path) == []
+    result = invoke(args + ["--negative-runoff", "zero", "--quiet"])
+    assert result.exit_code == 0, result.output
+    warnings = [w for w in result.stderr.splitlines() if w.startswith("denude: warning:")]
+    assert warnings == ["denude: warning: 6 map cells had negative runoff and were taken as 0 mm/yr (no dissolution; "
+                        "--negative-runoff zero); check the runoff input if that many is unexpected"]
+    with rasterio.open(tmp_path / "out" / "denudation_mm_per_kyr.tif") as ds:
+        assert (ds.read(1)[20:22, 30:33] == 0.0).all()
+    p = map_inputs["paths"]
+    job = tmp_path / "job.toml"
+    job.write_text(f'[inputs]\nlithology = "{p["lithology"].name}"\nrunoff = "{path.name}"\npco2 = "{p["pco2"].name}"\n'
+                   f'temperature = "{p["temperature"].name}"\n[run]\nout = "out2"\nnegative_runoff = "zero"\n')
+    result = invoke(["check", "--job", job])
+    assert result.exit_code == 0, result.output
+    assert "note: runoff raster" in result.stdout and "down to -5 mm/yr" in result.stdout
+    result = invoke(["map", "--job", job, "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert json.loads((tmp_path / "out2" / "run.json").read_text())["counts"]["negative_runoff"] == 6
+
+
+@pytest.fixture
+def zipped_inputs(map_inputs, tmp_path):
+    """The job's runoff and temperature GeoTIFFs stored in a zip archive built here (offline)."""
+    import zipfile
+
+    archive = tmp_path / "inputs.zip"
+    with zipfile.ZipFile(archive, "w") as zf:
+        for role in ("runoff", "temperature"):
+            zf.write(map_inputs["paths"][role], f"fields/{role}.tif")
+    return archive
+
+
+def test_virtual_paths_are_read_through_gdal(map_inputs, zipped_inputs, tmp_path):
+    local = tmp_path / "local"
+    assert invoke(base_args(map_inputs, local) + ["--quiet"]).exit_code == 0
+    args = base_args(map_inputs, tmp_path / "out") + ["--quiet"]
+    runoff = f"/vsizip/{zipped_inputs}/fields/runoff.tif"       # '/vsizip//abs/inputs.zip/...'
+    args[args.index("--runoff") + 1] = runoff
+    args[args.index("--temperature") + 1] = f"/vsizip/{{{zipped_inputs}}}/fields/temperature.tif"
+    result = invoke(args)
+    assert result.exit_code == 0, result.output
+    for name in ("denudation_mm_per_kyr.tif", "hazard_class.tif"):
+        with rasterio.open(local / name) as a, rasterio.open(tmp_path / "out" / name) as b:
+            assert a.read(1).tobytes() == b.read(1).tobytes()
+    record = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert record["settings"]["runoff"] == runoff                   # kept verbatim, '//' and all
+    assert record["inputs"]["runoff"]["path"] == runoff
+    assert record["inputs"]["runoff"]["sha256"] is None and record["inputs"]["runoff"]["size_bytes"] is None
+    assert record["inputs"]["runoff"]["width"] == 56
+
+
+@pytest.mark.parametrize("member", ["zip-missing-member", "vsimem"])
+def test_unopenable_virtual_path_is_one_line(map_inputs, zipped_inputs, tmp_path, member):
+    path = f"/vsizip/{zipped_inputs}/fields/nothing.tif" if member != "vsimem" else "/vsimem/denude-test/none.tif"
+    args = base_args(map_inputs, tmp_path / "out")
+    args[args.index("--runoff") + 1] = path
+    assert_one_line_error(invoke(args), path, "cannot be opened by GDAL", "check the address", "credentials")
+    args[0] = "check"
+    assert_one_line_error(invoke(args), path, "cannot be opened by GDAL")
+    assert leftovers(tmp_path) == []

@@ -134,7 +134,8 @@ def _batch_body(**kwargs):
             settings = settings_from_options(job, **kwargs)
     else:
         settings = settings_from_options(None, **kwargs)
-    pick = lambda name, default=None: own[name] if own.get(name) not in (None, False) else batch.get(name, default)  # noqa: E731
+    # `is not` rather than `in (None, False)`: 0 == False, and --workers 0 must win over the file
+    pick = lambda name, default=None: own[name] if own.get(name) is not None and own.get(name) is not False else batch.get(name, default)  # noqa: E731
     tile_size = pick("tile_size", DEFAULT_TILE_SIZE)
     zones_path = pick("zones")
     zones = ZoneSpec(str(Path(zones_path).resolve()), pick("zones_layer"), pick("zones_id_field")) if zones_path else None

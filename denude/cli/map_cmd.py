@@ -49,7 +49,7 @@ def map_options(
     grid_like: Annotated[Optional[str], typer.Option(help="Use this raster's grid as the target grid.")] = None,
     grid_crs: Annotated[Optional[str], typer.Option(help="Target grid CRS, e.g. EPSG:3035.")] = None,
     grid_resolution: Annotated[Optional[str], typer.Option(help="Target cell size in CRS units: 'R' or 'X Y'.")] = None,
-    grid_bounds: Annotated[Optional[str], typer.Option(help="Target bounds 'LEFT BOTTOM RIGHT TOP' in CRS units.")] = None,
+    grid_bounds: Annotated[Optional[str], typer.Option(help="Target bounds 'LEFT BOTTOM RIGHT TOP' in CRS units (default: the lithology extent, snapped outward to whole cells).")] = None,
     chemistry: Annotated[Optional[str], typer.Option(help="white (closed form) or speciated.")] = None,
     workers: Annotated[Optional[int], typer.Option(help="Worker threads (default 2).")] = None,
     block_size: Annotated[Optional[int], typer.Option(help="Block and output tile size, cells (default 512).")] = None,
@@ -59,6 +59,7 @@ def map_options(
     compress: Annotated[Optional[str], typer.Option(help="deflate or zstd.")] = None,
     lithology_resampling: Annotated[Optional[str], typer.Option(help="auto, nearest or mode (bilinear is refused).")] = None,
     continuous_resampling: Annotated[Optional[str], typer.Option(help="auto, bilinear, cubic, average or nearest.")] = None,
+    negative_runoff: Annotated[Optional[str], typer.Option(help="Negative runoff cells: error (default) or zero (taken as 0 mm/yr, counted in a warning).")] = None,
     job: Annotated[Optional[Path], typer.Option(help="TOML job file with the same settings; flags override it.")] = None,
 ):
     """Shared options of `denude map` and `denude check` (signature only)."""

@@ -52,6 +52,7 @@ class BlockCounts:
     unknown_code: int = 0      # lithology code not in the rock table
     out_of_range: int = 0      # temperature/PCO2/soluble fraction outside validity
     zero_runoff: int = 0       # runoff <= 0 (rate 0)
+    negative_runoff: int = 0   # runoff < 0 taken as 0 by the caller (counted there, not here)
 
     def __add__(self, other: "BlockCounts") -> "BlockCounts":
         return BlockCounts(**{k: getattr(self, k) + getattr(other, k) for k in self.__dataclass_fields__})

@@ -19,6 +19,19 @@ def effective_runoff_mm_per_yr(runoff_mm_per_yr):
     return np.where(q > 0.0, q, np.where(np.isnan(q), np.nan, 0.0))
 
 
+def zero_negative_runoff_mm_per_yr(runoff_mm_per_yr, counted=None):
+    """(runoff with negative values replaced by 0 mm/yr, number of replaced cells) [mm/yr].
+    NaN stays NaN. ``counted``: bool mask of the cells to count (default all); every negative
+    cell is replaced either way. A scalar is treated as a field of the mask's shape."""
+    q = np.asarray(runoff_mm_per_yr, dtype=np.float64)
+    negative = q < 0.0
+    if counted is not None:
+        n = int(np.count_nonzero(np.broadcast_to(negative, np.shape(counted)) & np.asarray(counted, bool)))
+    else:
+        n = int(np.count_nonzero(negative))
+    return np.where(negative, 0.0, q), n
+
+
 def runoff_from_water_balance_mm_per_yr(precipitation_mm_per_yr, evapotranspiration_mm_per_yr):
     """Runoff = precipitation - actual evapotranspiration, floored at 0, mm/yr."""
     p = np.asarray(precipitation_mm_per_yr, dtype=np.float64)

@@ -112,22 +112,15 @@ def _one_line(exc: BaseException) -> str:
 
 def _check_plausible(role: str, path: str, values: np.ndarray, settings: MapSettings, tile_id: str) -> None:
     """Refuse implausible input values in this tile (same bands as `denude map`)."""
-    from denude.execution.raster_job import PLAUSIBLE
+    from denude.execution.raster_job import band_text, implausible
 
-    key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
-    if key not in PLAUSIBLE:
-        return
     finite = values[np.isfinite(values)]
     if finite.size == 0:
         return
-    lo, hi = float(finite.min()), float(finite.max())
-    low, high, fix = PLAUSIBLE[key]
-    if lo < low or hi > high:
-        bad = lo if lo < low else hi
-        raise TileError(
-            f"tile {tile_id}: {role} raster {path} has value {bad:g} outside the plausible range "
-            f"{low:g} to {high:g}; {fix}"
-        )
+    found = implausible(role, settings, float(finite.min()), float(finite.max()))
+    if found is not None:
+        bad, low, high, fix, _ = found
+        raise TileError(f"tile {tile_id}: {role} raster {path} has value {bad:g} outside {band_text(low, high)}; {fix}")
 
 
 def _tile_readers(plan, settings: MapSettings, tile_id: str):
@@ -395,7 +388,7 @@ def _preflight(settings: MapSettings):
     """Checks that read metadata only (plus a sampled value range where readable): rock
     table, target grid, every input opens, has a CRS and overlaps the grid, constants are
     plausible. Pixel problems of single tiles are reported per tile."""
-    from denude.execution.raster_job import PLAUSIBLE, load_rocks, prepare_job, raster_roles, resolve_grid
+    from denude.execution.raster_job import band_text, implausible, load_rocks, prepare_job, raster_roles, resolve_grid
     from denude.io.rasters import value_range
 
     load_rocks(settings)
@@ -404,13 +397,10 @@ def _preflight(settings: MapSettings):
     for role in ("runoff", "precipitation", "aet", "pco2", "temperature", "soluble_fraction", "elevation"):
         value = settings.pco2 if role == "pco2" else getattr(settings, role)
         if is_constant(value):
-            key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
-            if key in PLAUSIBLE:
-                low, high, fix = PLAUSIBLE[key]
-                if not (low <= value <= high):
-                    raise InputError(
-                        f"--{role.replace('_', '-')} {value:g} is outside the plausible range {low:g} to {high:g}; {fix}"
-                    )
+            found = implausible(role, settings, value, value)
+            if found is not None:
+                _, low, high, fix, _ = found
+                raise InputError(f"--{role.replace('_', '-')} {value:g} is outside {band_text(low, high)}; {fix}")
     for role, path in raster_roles(settings).items():
         if plan.warps[role].categorical:
             continue
@@ -421,14 +411,10 @@ def _preflight(settings: MapSettings):
         except Exception:  # unreadable parts: the tiles touching them report it
             continue
         if n:
-            key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
-            if key in PLAUSIBLE:
-                low, high, fix = PLAUSIBLE[key]
-                if lo < low or hi > high:
-                    bad = lo if lo < low else hi
-                    raise InputError(
-                        f"{role} raster {path}: value {bad:g} is outside the plausible range {low:g} to {high:g}; {fix}"
-                    )
+            found = implausible(role, settings, lo, hi)
+            if found is not None:
+                bad, low, high, fix, _ = found
+                raise InputError(f"{role} raster {path}: value {bad:g} is outside {band_text(low, high)}; {fix}")
     return grid, plan
 
 
@@ -740,11 +726,13 @@ def run_batch(
             for k, v in (manifest.tiles.get(t.id, {}).get("counts") or {}).items():
                 counts[k] = counts.get(k, 0) + int(v)
         wall = time.perf_counter() - started
+        from denude.execution.raster_job import grid_source
+
         record = {
             "tool": "denude", "version": denude.__version__, "command": "batch",
             "settings": settings.as_dict(),
             "resolved_inputs": {f: getattr(resolved, f) for f in RASTER_FIELDS if getattr(resolved, f) != getattr(settings, f)},
-            "grid": grid.as_dict(), "tile_size": size, "tiles": len(tiles),
+            "grid": grid.as_dict(), "grid_source": grid_source(resolved), "tile_size": size, "tiles": len(tiles),
             "tiles_done": len(done), "tiles_run": total, "tiles_skipped": skipped,
             "tiles_failed": dict(sorted(failed.items())), "engine": engine_name,
             "counts": counts, "outputs": outputs + [MANIFEST_NAME, RUN_JSON, TILES_DIR + "/"],

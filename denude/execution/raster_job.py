@@ -36,13 +36,14 @@ from denude.core.constants import MINERAL_INDEX
 from denude.core.dissolution import warn_out_of_range
 from denude.core.hazard import DEFAULT_COLOURS, HAZARD_NODATA, classify
 from denude.core.kernel import BlockCounts, compute_block
-from denude.core.rates import runoff_from_water_balance_mm_per_yr
+from denude.core.rates import runoff_from_water_balance_mm_per_yr, zero_negative_runoff_mm_per_yr
 from denude.core.rocks import RockTable
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
 from denude.errors import CoverageWarning, DenudeWarning, GridError, InputError, OutputError
 from denude.execution.blocks import block_windows
-from denude.io.grid import Grid, parse_crs
+from denude.io.grid import Grid, check_resolution, parse_crs, snap_bounds_outward
 from denude.io.jobfile import LAYERS, MapSettings, is_constant
+from denude.io.mosaic import is_virtual_path
 from denude.io.rasters import (
     INT32_NODATA,
     GridReader,
@@ -52,6 +53,7 @@ from denude.io.rasters import (
     WarpPlan,
     choose_layout,
     file_sha256,
+    footprint_in_crs,
     inspect_raster,
     open_raster,
     overlap_fraction,
@@ -93,7 +95,7 @@ MIN_PLAUSIBLE_MAX_MM_PER_YR = 5.0
 #: Plausible value bands per input: role -> (low, high, fix when outside). Values outside
 #: usually mean wrong units; these are screening limits (common practice, no source).
 PLAUSIBLE = {
-    "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month); set negative cells to nodata"),
+    "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month)"),
     "precipitation": (0.0, 20000.0, "give precipitation in mm/yr"),
     "aet": (0.0, 5000.0, "give actual evapotranspiration in mm/yr"),
     "temperature": (-70.0, 60.0, "give temperature in degrees C (not kelvin or tenths of a degree)"),
@@ -103,6 +105,36 @@ PLAUSIBLE = {
     "pco2:ppmv": (1.0, 1e6, "values below 1 ppmv look like atm: use --pco2-units atm"),
     "pco2:log10atm": (-6.0, 0.0, "give log10 of PCO2 in atm (e.g. -2), or use --pco2-units atm"),
 }
+
+#: The fix named when runoff has negative cells under the default --negative-runoff error.
+NEGATIVE_RUNOFF_FIX = (
+    "negative runoff usually means wrong units or a water-balance residual: set those cells to nodata, "
+    "or use --negative-runoff zero (job file [run] negative_runoff = \"zero\") to take them as 0 mm/yr"
+)
+
+
+def band_text(low: float, high: float) -> str:
+    """'the plausible range LOW to HIGH' (or 'the plausible limit HIGH' without a lower bound)."""
+    return f"the plausible limit {high:g}" if low == -math.inf else f"the plausible range {low:g} to {high:g}"
+
+
+def implausible(role: str, settings: MapSettings, low_value: float, high_value: float):
+    """(offending value, band low, band high, fix, unit) when [low_value, high_value] leaves the
+    plausible band of ``role`` under these settings, else None. With --negative-runoff zero,
+    runoff has no lower bound (negative cells become 0 mm/yr)."""
+    key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
+    if key not in PLAUSIBLE:
+        return None
+    low, high, fix = PLAUSIBLE[key]
+    if role == "runoff" and settings.negative_runoff == "zero":
+        low = -math.inf
+    if low_value >= low and high_value <= high:
+        return None
+    bad = low_value if low_value < low else high_value
+    if role == "runoff" and bad < 0:
+        fix = NEGATIVE_RUNOFF_FIX
+    unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
+    return bad, low, high, fix, unit
 
 
 # ----------------------------------------------------------------------- layer descriptions
@@ -178,15 +210,34 @@ def load_rocks(settings: MapSettings) -> RockTable:
 
 
 def resolve_grid(settings: MapSettings) -> Grid:
-    """The target grid: --grid-like raster, CRS + resolution + bounds, or the lithology grid."""
+    """The target grid: --grid-like raster, CRS + resolution (+ bounds), or the lithology grid.
+    Without bounds, the lithology raster's extent in the target CRS (densified edges), snapped
+    outward to whole cells with the origin on multiples of the resolution."""
     if settings.grid_crs is not None:
-        return Grid.from_bounds(parse_crs(settings.grid_crs, "--grid-crs"), settings.grid_resolution, settings.grid_bounds)
+        crs = parse_crs(settings.grid_crs, "--grid-crs")
+        bounds = settings.grid_bounds
+        if bounds is None:
+            res = check_resolution(settings.grid_resolution)
+            bounds = snap_bounds_outward(footprint_in_crs(settings.lithology, "lithology", crs), res)
+        return Grid.from_bounds(crs, settings.grid_resolution, bounds)
     path = settings.grid_like or settings.lithology
     role = "grid" if settings.grid_like else "lithology"
     with open_raster(path, role) as ds:
         if ds.crs is None:
             raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
         return Grid.from_dataset(ds)
+
+
+def grid_source(settings: MapSettings) -> str:
+    """Where the target grid comes from, in words (for `denude check` and run.json)."""
+    if settings.grid_like:
+        return f"the grid of {settings.grid_like}"
+    if settings.grid_crs is None:
+        return f"the grid of the lithology raster {settings.lithology}"
+    if settings.grid_bounds is not None:
+        return "--grid-crs, --grid-resolution and --grid-bounds as given"
+    return ("--grid-crs and --grid-resolution; bounds = the lithology raster's extent in that CRS, "
+            "snapped outward to whole cells (origin on multiples of the resolution)")
 
 
 def raster_roles(settings: MapSettings) -> dict[str, str]:
@@ -311,8 +362,11 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
         codes = readers.read("lithology", window)
         valid = codes != INT32_NODATA
         aet = _value(readers, settings, "aet", window, ranges)
+        negative = 0
         if settings.runoff is not None:
             runoff = _value(readers, settings, "runoff", window, ranges)
+            if settings.negative_runoff == "zero":
+                runoff, negative = zero_negative_runoff_mm_per_yr(runoff, counted=valid)
         else:
             runoff = runoff_from_water_balance_mm_per_yr(
                 _value(readers, settings, "precipitation", window, ranges), aet)
@@ -325,6 +379,7 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
     lookup = plan.rocks.lookup()
     result = compute_block(codes, runoff, pco2, temperature, lookup, settings.chemistry,
                            soluble_fraction=fraction, lithology_valid=valid, warn=False)
+    result.counts.negative_runoff = negative
     wanted = set(layers or settings.layers)
     row = lookup.row_index(codes)
     known = valid & (row >= 0)
@@ -379,35 +434,28 @@ class JobReport:
     notes: list = field(default_factory=list)
 
 
-def _plausibility_key(role: str, settings: MapSettings) -> str:
-    return f"pco2:{settings.pco2_units}" if role == "pco2" else role
-
-
 def _check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings,
                  whole: bool = True) -> None:
     """Raise a one-line error when values are implausible. ``whole``: the range covers the whole
     input (a constant or a raster-wide scan), not one window, so unit heuristics apply."""
-    key = _plausibility_key(role, settings)
-    if key not in PLAUSIBLE:
+    found = implausible(role, settings, low_value, high_value)
+    if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
+        raise InputError(
+            f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
+            f"like m/yr: give {role} in mm/yr (multiply by 1000)"
+        )
+    if found is None:
         return
-    low, high, fix = PLAUSIBLE[key]
+    bad, low, high, fix, unit = found
     if role == "temperature" and high_value > 200:
         fix = "values look like kelvin; convert to degrees C (subtract 273.15)"
     if role == "soluble_fraction" and 1 < high_value <= 100:
         fix = "values look like percent; divide by 100"
     if role == "pco2" and settings.pco2_units == "atm" and high_value <= 0 and low_value >= -6:
         fix = "values look like log10 atm: use --pco2-units log10atm"
-    if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
-        raise InputError(
-            f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
-            f"like m/yr: give {role} in mm/yr (multiply by 1000)"
-        )
-    if low_value < low or high_value > high:
-        bad = low_value if low_value < low else high_value
-        unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
-        raise InputError(
-            f"{where}: {role} value {bad:g} is outside the plausible range {low:g} to {high:g} {unit}; {fix}"
-        )
+    raise InputError(
+        f"{where}: {role} value {bad:g} is outside {band_text(low, high)} {unit}; {fix}"
+    )
 
 
 def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
@@ -429,6 +477,8 @@ def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
     if settings.grid_like:
         paths["grid"] = settings.grid_like
     for role, path in paths.items():
+        if is_virtual_path(path):
+            continue
         p = Path(path).resolve()
         if p == out or out in p.parents:
             raise OutputError(
@@ -476,6 +526,11 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         check_outputs(settings, roles)
     grid = resolve_grid(settings)
     report = JobReport(settings, grid, rocks, layout=choose_layout(settings.layout, grid))
+    if settings.grid_crs is not None and settings.grid_bounds is None:
+        l, b, r, t = grid.bounds
+        report.notes.append(
+            f"target grid bounds ({l:.12g}, {b:.12g}, {r:.12g}, {t:.12g}): the lithology raster's extent in "
+            f"{grid.crs_label()}, snapped outward to whole {grid.res[0]:.12g} x {grid.res[1]:.12g} cells")
     # constants first: cheap
     for role in ("runoff", "precipitation", "aet", "pco2", "temperature", "soluble_fraction", "elevation"):
         value = settings.pco2 if role == "pco2" else getattr(settings, role)
@@ -488,6 +543,8 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
     if settings.pco2_from_aet:
         report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
+    if is_constant(settings.runoff) and settings.runoff < 0:
+        report.notes.append(f"runoff {settings.runoff:g} mm/yr is negative: taken as 0 mm/yr (--negative-runoff zero)")
     if settings.pco2_units != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
         warnings.warn(DenudeWarning(
             f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings.pco2_units}"),
@@ -516,6 +573,9 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
             if n:
                 item.value_min, item.value_max = lo, hi
                 _check_range(role, f"{role} raster {path}", lo, hi, settings)
+                if role == "runoff" and lo < 0:
+                    report.notes.append(f"runoff raster {path} has negative values (down to {lo:g} mm/yr); "
+                                        "they will be taken as 0 mm/yr (--negative-runoff zero)")
         report.inputs[role] = item
     lithology_is_float = not np.issubdtype(np.dtype(report.inputs["lithology"].info.dtype), np.integer)
     if not scan and not lithology_is_float:
@@ -536,6 +596,11 @@ def warn_about_counts(counts: dict) -> None:
     """One-line warnings a finished run owes its user: cells out of the constants' range, and a
     map that is mostly zero because runoff is <= 0 (P < AET, or swapped inputs)."""
     warn_out_of_range(counts.get("out_of_range", 0))
+    negative = counts.get("negative_runoff", 0)
+    if negative:
+        warnings.warn(DenudeWarning(
+            f"{negative} map cells had negative runoff and were taken as 0 mm/yr (no dissolution; "
+            "--negative-runoff zero); check the runoff input if that many is unexpected"), stacklevel=2)
     computed, zero = counts.get("computed", 0), counts.get("zero_runoff", 0)
     if computed and zero >= ZERO_RUNOFF_WARN_SHARE * computed:
         warnings.warn(DenudeWarning(
@@ -655,8 +720,9 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     windows = block_windows(grid.height, grid.width, settings.block_size)
     layers = [name for name in LAYERS if name in settings.layers]
 
-    hash_paths = sorted({item.info.path for item in report.inputs.values() if item.info is not None}
-                        | {p for p in (settings.rocks, settings.job_file) if p})
+    hash_paths = sorted({item.info.path for item in report.inputs.values()
+                         if item.info is not None and not is_virtual_path(item.info.path)}
+                        | {p for p in (settings.rocks, settings.job_file) if p})  # remote inputs: no checksum
     hashes: dict = {}
     hasher = threading.Thread(target=lambda: hashes.update({p: file_sha256(p) for p in hash_paths}), daemon=True)
     hasher.start()
@@ -722,6 +788,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
             "settings": settings.as_dict(),
             "inputs": _input_records(settings, report, hashes),
             "grid": grid.as_dict(),
+            "grid_source": grid_source(settings),
             "layout": report.layout,
             "block_size": settings.block_size,
             "blocks": len(windows),

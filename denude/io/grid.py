@@ -32,6 +32,41 @@ def parse_crs(value, where: str = "grid") -> CRS:
         ) from None
 
 
+#: A bound within this many cells of a whole multiple of the resolution counts as on it
+#: (absorbs floating-point noise from the projection, so a bound is never pushed out a cell).
+SNAP_TOLERANCE_CELLS = 1e-9
+
+
+def check_resolution(resolution) -> tuple[float, float]:
+    """A grid resolution (one number or (x, y)) [CRS units] as a positive, finite (x, y) pair."""
+    res = resolution if isinstance(resolution, (list, tuple)) else (resolution, resolution)
+    try:
+        xres, yres = (float(r) for r in res)
+    except (TypeError, ValueError):
+        raise GridError(f"grid resolution {resolution!r} is not one or two numbers; give e.g. 1000 or '1000 500'") from None
+    if not (xres > 0 and yres > 0 and math.isfinite(xres) and math.isfinite(yres)):
+        raise GridError(f"grid resolution {resolution!r} must be positive (CRS units)")
+    return xres, yres
+
+
+def snap_bounds_outward(bounds, resolution) -> tuple[float, float, float, float]:
+    """(left, bottom, right, top) [CRS units] widened to whole multiples of the resolution
+    (x, y) [CRS units]: left and bottom rounded down, right and top rounded up, so the grid's
+    origin lies on multiples of the resolution and the bounds still cover ``bounds``."""
+    xres, yres = check_resolution(resolution)
+    left, bottom, right, top = (float(v) for v in bounds)
+
+    def down(value, step):
+        k = value / step
+        return round(k) * step if abs(k - round(k)) <= SNAP_TOLERANCE_CELLS * max(1.0, abs(k)) else math.floor(k) * step
+
+    def up(value, step):
+        k = value / step
+        return round(k) * step if abs(k - round(k)) <= SNAP_TOLERANCE_CELLS * max(1.0, abs(k)) else math.ceil(k) * step
+
+    return (down(left, xres), down(bottom, yres), up(right, xres), up(top, yres))
+
+
 @dataclass(frozen=True)
 class Grid:
     """A north-up raster grid. ``crs_wkt`` keeps it picklable; ``transform`` is 6 GDAL-order
@@ -72,17 +107,13 @@ class Grid:
         (left, bottom, right, top, CRS units). The right and bottom edges are extended to
         whole cells."""
         crs = crs if isinstance(crs, CRS) else parse_crs(crs)
-        res = resolution if isinstance(resolution, (list, tuple)) else (resolution, resolution)
+        xres, yres = check_resolution(resolution)
         try:
-            xres, yres = (float(r) for r in res)
             left, bottom, right, top = (float(v) for v in bounds)
         except (TypeError, ValueError):
             raise GridError(
-                f"grid resolution {resolution!r} or bounds {bounds!r} are not numbers; give "
-                "resolution as one or two numbers and bounds as left bottom right top"
+                f"grid bounds {bounds!r} are not numbers; give bounds as left bottom right top"
             ) from None
-        if not (xres > 0 and yres > 0 and math.isfinite(xres) and math.isfinite(yres)):
-            raise GridError(f"grid resolution {resolution!r} must be positive (CRS units)")
         if not (right > left and top > bottom):
             raise GridError(
                 f"grid bounds {list(bounds)} must be left bottom right top with right > left and top > bottom"
@@ -152,8 +183,8 @@ class Grid:
     def geometry_text(self) -> str:
         """'CRS, resolution X x Y, bounds (l, b, r, t)' for the terminal."""
         l, b, r, t = self.bounds
-        return (f"{self.crs_label()}, resolution {self.res[0]:g} x {self.res[1]:g}, "
-                f"bounds ({l:g}, {b:g}, {r:g}, {t:g})")
+        return (f"{self.crs_label()}, resolution {self.res[0]:.12g} x {self.res[1]:.12g}, "
+                f"bounds ({l:.12g}, {b:.12g}, {r:.12g}, {t:.12g})")
 
     def describe(self) -> str:
         """One line for the terminal."""

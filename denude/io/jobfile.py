@@ -17,10 +17,11 @@ relative paths resolve against the job file's folder)::
     soluble_fraction = 1.0             # soluble-area fraction of each cell, 0-1
 
     [grid]                             # default: the lithology raster's grid
-    like = "other.tif"                 # or crs + resolution + bounds:
+    like = "other.tif"                 # or crs + resolution (+ bounds):
     crs = "EPSG:3035"
     resolution = 1000.0                # CRS units; one number or [x, y]
-    bounds = [left, bottom, right, top]
+    bounds = [left, bottom, right, top]  # CRS units; default: the lithology extent in crs,
+                                       # snapped outward to multiples of the resolution
 
     [run]
     out = "out"
@@ -34,6 +35,7 @@ relative paths resolve against the job file's folder)::
     compress = "deflate"               # deflate | zstd
     lithology_resampling = "auto"      # auto | nearest | mode
     continuous_resampling = "auto"     # auto | bilinear | cubic | average | nearest
+    negative_runoff = "error"          # error | zero (negative runoff cells taken as 0 mm/yr)
 
     [hazard]
     breaks_mm_per_kyr = [5, 20, 50, 150]
@@ -60,6 +62,8 @@ from denude.errors import DenudeError, InputError, JobFileError
 PCO2_FROM_AET = "from-aet"
 PCO2_UNITS = ("atm", "ppmv", "log10atm")
 CHEMISTRIES = ("white", "speciated")
+#: What negative runoff cells are: a user error, or 0 mm/yr (no dissolution, counted in a warning).
+NEGATIVE_RUNOFF = ("error", "zero")
 
 #: Output layers selectable with --layers: short name -> file name.
 LAYERS = {
@@ -87,6 +91,7 @@ SECTIONS = {
         "layout": "layout", "compress": "compress",
         "lithology_resampling": "lithology_resampling",
         "continuous_resampling": "continuous_resampling",
+        "negative_runoff": "negative_runoff",
     },
     "hazard": {"breaks_mm_per_kyr": "hazard_breaks_mm_per_kyr", "names": "hazard_names"},
 }
@@ -128,6 +133,7 @@ class MapSettings:
     compress: str = "deflate"
     lithology_resampling: str = "auto"
     continuous_resampling: str = "auto"
+    negative_runoff: str = "error"              # NEGATIVE_RUNOFF
     hazard_breaks_mm_per_kyr: tuple = DEFAULT_BREAKS_MM_PER_KYR
     hazard_names: tuple = DEFAULT_CLASS_NAMES
     job_file: str | None = None
@@ -174,6 +180,7 @@ def check_settings(s: MapSettings) -> None:
     where = f"job file {s.job_file}: " if s.job_file else ""
     _choice(s.chemistry, CHEMISTRIES, f"{where}chemistry")
     _choice(s.pco2_units, PCO2_UNITS, f"{where}pco2 units")
+    _choice(s.negative_runoff, NEGATIVE_RUNOFF, f"{where}negative runoff handling")
     for layer in s.layers:
         _choice(layer, tuple(LAYERS), f"{where}layer")
     if not s.layers:
@@ -200,8 +207,13 @@ def check_settings(s: MapSettings) -> None:
     if any(p is not None for p in grid_parts):
         if s.grid_like is not None:
             raise InputError(f"{where}give --grid-like or --grid-crs/--grid-resolution/--grid-bounds, not both")
-        if any(p is None for p in grid_parts):
-            raise InputError(f"{where}a target grid needs all of --grid-crs, --grid-resolution and --grid-bounds")
+        missing = [name for name, value in (("--grid-crs", s.grid_crs), ("--grid-resolution", s.grid_resolution))
+                   if value is None]
+        if missing:
+            raise InputError(
+                f"{where}a target grid needs both --grid-crs and --grid-resolution; add {' and '.join(missing)} "
+                "(--grid-bounds is optional: default the lithology extent)"
+            )
     if not (isinstance(s.workers, int) and 1 <= s.workers <= 256):
         raise InputError(f"{where}workers {s.workers!r} must be an integer from 1 to 256")
     if not (isinstance(s.gdal_cache_mb, int) and 16 <= s.gdal_cache_mb <= 65536):
@@ -240,6 +252,10 @@ def _parse_value(value, field_name: str, base: Path | None):
 
 
 def _parse_path(value, base: Path | None) -> str:
+    """An absolute, normalised local path; GDAL virtual paths (/vsi...) are kept verbatim
+    (normalising would merge the '//' of '/vsicurl/https://...' or '/vsizip//abs/a.zip')."""
+    if str(value).startswith("/vsi"):
+        return str(value)
     path = Path(os.path.expanduser(str(value)))
     if not path.is_absolute():
         path = (base or Path.cwd()) / path
@@ -332,7 +348,8 @@ def _coerce(name: str, value, base: Path | None, where: str):
             return tuple(float(v) for v in value)
         if name == "hazard_names":
             return tuple(str(v) for v in value)
-        if name in ("chemistry", "pco2_units", "layout", "compress", "lithology_resampling", "continuous_resampling"):
+        if name in ("chemistry", "pco2_units", "layout", "compress", "lithology_resampling", "continuous_resampling",
+                    "negative_runoff"):
             return str(value).strip().lower()
     except DenudeError:
         raise

@@ -27,13 +27,14 @@ import numpy as np
 import rasterio
 import rasterio.shutil
 from rasterio.enums import Resampling
-from rasterio.errors import RasterioIOError
+from rasterio.errors import RasterioError, RasterioIOError
 from rasterio.vrt import WarpedVRT
 from rasterio.warp import transform_bounds
 from rasterio.windows import Window
 
 from denude.errors import GridError, InputError, OutputError
 from denude.io.grid import Grid
+from denude.io.mosaic import is_virtual_path
 
 INT32_NODATA = -2147483648
 
@@ -80,7 +81,7 @@ class RasterInfo:
     height: int
     dtype: str
     nodata: float | None
-    size_bytes: int
+    size_bytes: int | None          # None for GDAL virtual paths (/vsis3/, /vsicurl/, ...)
 
     @property
     def grid(self) -> Grid:
@@ -96,7 +97,18 @@ class RasterInfo:
 
 
 def open_raster(path, role: str):
-    """Open a raster for reading; a missing or unreadable file is a one-line InputError."""
+    """Open a raster for reading; a missing or unreadable file is a one-line InputError.
+    GDAL virtual paths (/vsis3/..., /vsicurl/..., /vsizip/...) are handed to GDAL as they are
+    (no local existence check); one GDAL cannot open is an InputError naming the path."""
+    if is_virtual_path(path):
+        text = str(path)
+        try:
+            return rasterio.open(text)
+        except (RasterioError, OSError):
+            raise InputError(
+                f"{role} raster {text} cannot be opened by GDAL; check the address (bucket, key, URL or "
+                "archive member) and the credentials in the environment (e.g. AWS_ACCESS_KEY_ID)"
+            ) from None
     path = Path(path)
     if not path.exists():
         raise InputError(f"{role} raster {path} not found; give the path of an existing GeoTIFF or a number")
@@ -124,8 +136,34 @@ def inspect_raster(path, role: str) -> RasterInfo:
             role=role, path=str(path), crs_wkt=ds.crs.to_wkt(), transform=tuple(ds.transform)[:6],
             width=ds.width, height=ds.height, dtype=ds.dtypes[0],
             nodata=None if ds.nodata is None else float(ds.nodata),
-            size_bytes=os.path.getsize(path),
+            size_bytes=None if is_virtual_path(path) else os.path.getsize(path),
         )
+
+
+#: Points added along each edge when projecting an extent (curved edges in the target CRS).
+DENSIFY_POINTS = 21
+
+
+def footprint_in_crs(path, role: str, crs) -> tuple[float, float, float, float]:
+    """A raster's bounds (left, bottom, right, top) transformed into ``crs`` [its units], with
+    densified edges. No CRS, an extent that cannot be projected, or one that wraps around the
+    antimeridian in ``crs`` is a one-line GridError."""
+    with open_raster(path, role) as ds:
+        if ds.crs is None:
+            raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
+        src_crs, src_bounds = ds.crs, tuple(ds.bounds)
+    if src_crs == crs:
+        return src_bounds
+    try:
+        left, bottom, right, top = transform_bounds(src_crs, crs, *src_bounds, densify_pts=DENSIFY_POINTS)
+    except Exception:  # projection failures depend on PROJ
+        left = bottom = right = top = math.nan
+    if not all(math.isfinite(v) for v in (left, bottom, right, top)) or right <= left or top <= bottom:
+        raise GridError(
+            f"{role} raster {path}: its extent cannot be projected to the target CRS as one box "
+            "(outside the CRS's area, or across the antimeridian); give --grid-bounds"
+        )
+    return (left, bottom, right, top)
 
 
 def footprint_on(info: RasterInfo, grid: Grid) -> tuple[float, float, float, float]:
@@ -134,7 +172,7 @@ def footprint_on(info: RasterInfo, grid: Grid) -> tuple[float, float, float, flo
     if src.crs == grid.crs:
         return src.bounds
     try:
-        return transform_bounds(src.crs, grid.crs, *src.bounds, densify_pts=21)
+        return transform_bounds(src.crs, grid.crs, *src.bounds, densify_pts=DENSIFY_POINTS)
     except Exception:  # pragma: no cover - projection failures depend on PROJ
         raise GridError(
             f"{info.role} raster {info.path}: its extent cannot be projected to the target CRS; "

@@ -61,6 +61,7 @@ def summary_lines(summary) -> list[str]:
         f"wrote {summary.out_dir} ({', '.join(summary.outputs)})",
         f"grid: {summary.grid.describe()}; {summary.blocks} blocks, layout {summary.layout}",
         f"cells: {c.cells} total, {c.computed} computed, {c.nodata} nodata, {c.unknown_code} unknown code, "
-        f"{c.out_of_range} out of range, {c.zero_runoff} zero runoff",
+        f"{c.out_of_range} out of range, {c.zero_runoff} zero runoff"
+        + (f" ({c.negative_runoff} negative, taken as 0)" if c.negative_runoff else ""),
         f"wall time: {summary.wall_time_s:.1f} s",
     ]
