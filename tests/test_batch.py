@@ -257,6 +257,18 @@ def test_other_job_in_output_folder_is_refused(region, tmp_path):
         run_batch(settings_for(region["paths"], tmp_path / "plain"), TILE, workers=0)
 
 
+
+def test_input_inside_the_batch_output_folder_is_refused(region, tmp_path):
+    out = tmp_path / "o"
+    out.mkdir()
+    runoff = out / "runoff.tif"
+    shutil.copy(region["paths"]["runoff"], runoff)
+    paths = {**region["paths"], "runoff": runoff}
+    with pytest.raises(OutputError, match=r"runoff input .*runoff\.tif is inside \(or equal to\) the batch output folder"):
+        run_batch(settings_for(paths, out), TILE, workers=0)
+    assert sorted(p.name for p in out.iterdir()) == ["runoff.tif"]      # nothing written beside it
+
+
 # ---------------------------------------------------------------------------- zones
 def test_zone_summaries_over_tiles_equal_merged_raster(region, tmp_path):
     gpd = pytest.importorskip("geopandas")

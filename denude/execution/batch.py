@@ -305,15 +305,9 @@ def _check_inputs_outside(settings: MapSettings, out: Path, zones: ZoneSpec | No
     paths["job file"] = settings.job_file
     if zones is not None:
         paths["zones"] = zones.path
-    for role, value in paths.items():
-        if not isinstance(value, str) or value.startswith("/vsi") or value == "from-aet":
-            continue
-        p = Path(value).resolve()
-        if p == out or out in p.parents:
-            raise OutputError(
-                f"{role} input {p} is inside (or equal to) the batch output folder {out}; outputs would "
-                "replace it: give another --out"
-            )
+    from denude.execution.raster_job import refuse_inputs_inside
+
+    refuse_inputs_inside(paths, out, "batch output folder")
 
 
 def _prepare_out_dir(out: Path, key: str, overwrite: bool) -> Manifest | None:

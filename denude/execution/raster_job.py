@@ -476,13 +476,19 @@ def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
         paths["job file"] = settings.job_file
     if settings.grid_like:
         paths["grid"] = settings.grid_like
+    refuse_inputs_inside(paths, out, "output folder")
+
+
+def refuse_inputs_inside(paths: dict, out: Path, folder: str) -> None:
+    """OutputError when an input path (role -> path; numbers, 'from-aet' and GDAL virtual
+    paths are skipped) lies inside or equals the output folder ``out`` (the ``folder`` named)."""
     for role, path in paths.items():
-        if is_virtual_path(path):
+        if not isinstance(path, (str, os.PathLike)) or path == "from-aet" or is_virtual_path(path):
             continue
         p = Path(path).resolve()
         if p == out or out in p.parents:
             raise OutputError(
-                f"{role} input {p} is inside (or equal to) the output folder {out}; outputs would "
+                f"{role} input {p} is inside (or equal to) the {folder} {out}; outputs would "
                 "replace it: give another --out"
             )
 

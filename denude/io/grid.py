@@ -56,15 +56,13 @@ def snap_bounds_outward(bounds, resolution) -> tuple[float, float, float, float]
     xres, yres = check_resolution(resolution)
     left, bottom, right, top = (float(v) for v in bounds)
 
-    def down(value, step):
+    def snap(value, step, outward):
         k = value / step
-        return round(k) * step if abs(k - round(k)) <= SNAP_TOLERANCE_CELLS * max(1.0, abs(k)) else math.floor(k) * step
+        near = abs(k - round(k)) <= SNAP_TOLERANCE_CELLS * max(1.0, abs(k))
+        return (round(k) if near else outward(k)) * step
 
-    def up(value, step):
-        k = value / step
-        return round(k) * step if abs(k - round(k)) <= SNAP_TOLERANCE_CELLS * max(1.0, abs(k)) else math.ceil(k) * step
-
-    return (down(left, xres), down(bottom, yres), up(right, xres), up(top, yres))
+    return (snap(left, xres, math.floor), snap(bottom, yres, math.floor),
+            snap(right, xres, math.ceil), snap(top, yres, math.ceil))
 
 
 @dataclass(frozen=True)
