@@ -40,7 +40,8 @@ from denude.execution.manifest import (
 )
 from denude.execution.tiling import Tile, check_tile_size, make_tiles, sub_windows
 from denude.io.grid import Grid
-from denude.io.jobfile import LAYERS, MapSettings, is_constant
+from denude.io.jobfile import MapSettings, is_constant
+from denude.registry import LAYERS, OUTPUT_LAYERS, ZONE_LAYERS
 from denude.io.mosaic import (
     VrtSource, fsync_dir, mosaic_kind, write_mosaic_vrt, write_text_atomic, write_vrt,
 )
@@ -59,7 +60,7 @@ RASTER_FIELDS = ("lithology", "runoff", "precipitation", "aet", "pco2", "elevati
 #: Seconds between manifest rewrites while tiles finish (always rewritten at the end).
 MANIFEST_INTERVAL_S = 0.2
 #: Layers a zone summary reads (the summaries module's required files).
-ZONE_LAYERS = ("denudation", "co2_drawdown", "hazard", "lithology", "soluble_fraction")
+
 
 
 class TileError(DenudeError):
@@ -191,7 +192,7 @@ def _run_tile(task: TileTask) -> dict:
     import rasterio
 
     from denude.core.kernel import BlockCounts
-    from denude.execution.raster_job import LAYER_INFO, compute_window, output_spec, prepare_job
+    from denude.execution.raster_job import compute_window, output_spec, prepare_job
     from denude.io.rasters import RasterWriter, file_sha256
     from denude.io.rock_csv import write_rock_table
 
@@ -208,7 +209,7 @@ def _run_tile(task: TileTask) -> dict:
             staging.mkdir(parents=True)
             tile_grid = tile.grid(task.grid)
             for name in task.layers:
-                writers[name] = RasterWriter(staging / LAYER_INFO[name].file, tile_grid, output_spec(name, settings),
+                writers[name] = RasterWriter(staging / OUTPUT_LAYERS[name].file, tile_grid, output_spec(name, settings),
                                              task.block_size, settings.compress, task.layout)
             readers = _tile_readers(plan, settings, tile.id)
             wanted = tuple(dict.fromkeys(tuple(task.layers) + ("lithology",)))
@@ -420,11 +421,11 @@ def _gdal_env(settings: MapSettings) -> dict:
 
 def _layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: MapSettings, layers) -> list[str]:
     """One VRT per layer over the finished tiles (relative paths, integer offsets)."""
-    from denude.execution.raster_job import LAYER_INFO, output_spec
+    from denude.execution.raster_job import output_spec
 
     written = []
     for name in layers:
-        info = LAYER_INFO[name]
+        info = OUTPUT_LAYERS[name]
         spec = output_spec(name, settings)
         sources = [
             VrtSource(f"{TILES_DIR}/{t.id}/{info.file}", True, t.width, t.height, t.col_off, t.row_off,
@@ -454,7 +455,7 @@ def _merge_layers(out: Path, grid: Grid, settings: MapSettings, layers, layout: 
     import rasterio
 
     from denude.execution.blocks import block_windows
-    from denude.execution.raster_job import LAYER_INFO, output_spec
+    from denude.execution.raster_job import output_spec
     from denude.io.rasters import RasterWriter
 
     staging = out / f".merge-partial-{uuid.uuid4().hex[:8]}"
@@ -462,7 +463,7 @@ def _merge_layers(out: Path, grid: Grid, settings: MapSettings, layers, layout: 
     names = []
     try:
         for name in layers:
-            info = LAYER_INFO[name]
+            info = OUTPUT_LAYERS[name]
             writer = RasterWriter(staging / info.file, grid, output_spec(name, settings), settings.block_size,
                                   settings.compress, layout)
             try:

@@ -42,7 +42,8 @@ from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_a
 from denude.errors import CoverageWarning, DenudeWarning, GridError, InputError, OutputError
 from denude.execution.blocks import block_windows
 from denude.io.grid import Grid, check_resolution, parse_crs, snap_bounds_outward
-from denude.io.jobfile import LAYERS, MapSettings, is_constant
+from denude.io.jobfile import MapSettings, is_constant
+from denude.registry import INPUT_ROLES, LAYERS, OUTPUT_LAYERS
 from denude.io.mosaic import is_virtual_path
 from denude.io.rasters import (
     INT32_NODATA,
@@ -68,18 +69,6 @@ SOURCES = (
     "White (1984) maximum denudation; Plummer & Busenberg (1982) equilibrium constants; "
     "Brook, Folkoff & Box (1983) soil CO2 when derived from AET"
 )
-
-#: Raster inputs: role -> (categorical, unit).
-INPUT_ROLES = {
-    "lithology": (True, "code"),
-    "runoff": (False, "mm/yr"),
-    "precipitation": (False, "mm/yr"),
-    "aet": (False, "mm/yr"),
-    "pco2": (False, "see pco2_units"),
-    "elevation": (False, "m"),
-    "temperature": (False, "degrees C"),
-    "soluble_fraction": (False, "fraction 0-1"),
-}
 
 #: A target grid with more than this many times the lithology raster's cells is taken to be a
 #: resolution typo (a 100 m grid given as 0.01) rather than deliberate supersampling.
@@ -133,50 +122,14 @@ def implausible(role: str, settings: MapSettings, low_value: float, high_value: 
     bad = low_value if low_value < low else high_value
     if role == "runoff" and bad < 0:
         fix = NEGATIVE_RUNOFF_FIX
-    unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role][1])
+    unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role].unit)
     return bad, low, high, fix, unit
 
 
 # ----------------------------------------------------------------------- layer descriptions
-@dataclass(frozen=True)
-class LayerInfo:
-    file: str
-    dtype: str
-    nodata: float
-    overview_resampling: str
-    units: str
-    quantity: str
-    formula: str
-
-
-LAYER_INFO = {
-    "denudation": LayerInfo(
-        LAYERS["denudation"], "float32", float("nan"), "average", "mm/kyr",
-        "cell-mean maximum chemical denudation rate",
-        "D = M [Ca]eq q / (rho purity) x soluble-area fraction"),
-    "dissolved_load": LayerInfo(
-        LAYERS["dissolved_load"], "float32", float("nan"), "average", "mmol/L",
-        "equilibrium dissolved mineral load (not scaled by area fraction)",
-        "[Ca]eq = (K1 Kc KH PCO2 / (4 K2 gCa gHCO3^2))^(1/3) (calcite; analogues for dolomite, gypsum)"),
-    "co2_drawdown": LayerInfo(
-        LAYERS["co2_drawdown"], "float32", float("nan"), "average", "t CO2 km-2 yr-1",
-        "CO2 drawn down by dissolution per km2 of cell",
-        "n [Ca]eq q 44.01 x soluble-area fraction"),
-    "hazard": LayerInfo(
-        LAYERS["hazard"], "uint8", float(HAZARD_NODATA), "nearest", "class index",
-        "dissolution hazard class from the denudation rate", "class k where breaks[k-1] <= D < breaks[k]"),
-    "lithology": LayerInfo(
-        LAYERS["lithology"], "int32", float(INT32_NODATA), "nearest", "code",
-        "lithology code on the target grid", "input lithology, nearest/mode resampled"),
-    "soluble_fraction": LayerInfo(
-        LAYERS["soluble_fraction"], "float32", float("nan"), "average", "fraction 0-1",
-        "soluble-rock area fraction of each cell", "0 on insoluble rock, else the soluble-area fraction input"),
-}
-
-
 def output_spec(layer: str, settings: MapSettings) -> OutputSpec:
     """The OutputSpec (file, dtype, nodata, tags, colours) of one output layer."""
-    info = LAYER_INFO[layer]
+    info = OUTPUT_LAYERS[layer]
     tags = {
         "units": info.units,
         "quantity": info.quantity,
@@ -283,7 +236,7 @@ def prepare_job(settings: MapSettings, grid: Grid) -> JobPlan:
 def _prepare_job(settings: MapSettings, grid: Grid, stamps: tuple) -> JobPlan:
     warps = {}
     for role, path in raster_roles(settings).items():
-        categorical = INPUT_ROLES[role][0]
+        categorical = INPUT_ROLES[role].categorical
         requested = settings.lithology_resampling if categorical else settings.continuous_resampling
         warps[role] = plan_warp(inspect_raster(path, role), grid, categorical, requested)
     return JobPlan(settings, grid, warps, load_rocks(settings))
@@ -556,7 +509,7 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
             f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings.pco2_units}"),
             stacklevel=2)
     for role, path in roles.items():
-        categorical = INPUT_ROLES[role][0]
+        categorical = INPUT_ROLES[role].categorical
         info = inspect_raster(path, role)
         requested = settings.lithology_resampling if categorical else settings.continuous_resampling
         warp = plan_warp(info, grid, categorical, requested)
@@ -679,7 +632,7 @@ def _input_records(settings: MapSettings, report: JobReport, hashes: dict) -> di
     records = {}
     for role, item in report.inputs.items():
         if item.constant is not None:
-            records[role] = {"constant": item.constant, "unit": INPUT_ROLES[role][1] if role != "pco2" else settings.pco2_units}
+            records[role] = {"constant": item.constant, "unit": INPUT_ROLES[role].unit if role != "pco2" else settings.pco2_units}
             continue
         info = item.info
         crs = info.grid.crs
@@ -694,7 +647,7 @@ def _input_records(settings: MapSettings, report: JobReport, hashes: dict) -> di
             "resolution": list(info.res),
             "nodata": _json_number(info.nodata),
             "resampling": "none (aligned)" if item.warp.offset is not None else item.warp.resampling,
-            "unit": INPUT_ROLES[role][1] if role != "pco2" else settings.pco2_units,
+            "unit": INPUT_ROLES[role].unit if role != "pco2" else settings.pco2_units,
         }
     if settings.rocks:
         records["rocks"] = {"path": settings.rocks, "size_bytes": os.path.getsize(settings.rocks),
@@ -752,7 +705,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     found: set = set()
     try:
         for name in layers:
-            writers[name] = RasterWriter(staging / LAYER_INFO[name].file, grid, output_spec(name, settings),
+            writers[name] = RasterWriter(staging / OUTPUT_LAYERS[name].file, grid, output_spec(name, settings),
                                          settings.block_size, settings.compress, report.layout)
         in_flight = 2 * settings.workers
         with ThreadPoolExecutor(max_workers=settings.workers, thread_name_prefix="denude-window") as pool:

@@ -59,21 +59,8 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
 from denude.errors import DenudeError, InputError, JobFileError
 
-PCO2_FROM_AET = "from-aet"
-PCO2_UNITS = ("atm", "ppmv", "log10atm")
-CHEMISTRIES = ("white", "speciated")
-#: What negative runoff cells are: a user error, or 0 mm/yr (no dissolution, counted in a warning).
-NEGATIVE_RUNOFF = ("error", "zero")
-
-#: Output layers selectable with --layers: short name -> file name.
-LAYERS = {
-    "denudation": "denudation_mm_per_kyr.tif",
-    "dissolved_load": "dissolved_load_mmol_per_l.tif",
-    "co2_drawdown": "co2_drawdown_t_per_km2_yr.tif",
-    "hazard": "hazard_class.tif",
-    "lithology": "lithology_code.tif",
-    "soluble_fraction": "soluble_area_fraction.tif",
-}
+from denude.registry import (CHEMISTRIES, CHOICES, LAYERS, NEGATIVE_RUNOFF, PATH_FIELDS, PCO2_FROM_AET,
+                             PCO2_UNITS, REFUSED_LITHOLOGY_RESAMPLING, VALUE_FIELDS)
 
 #: Job-file sections -> {key: MapSettings field}.
 SECTIONS = {
@@ -95,12 +82,6 @@ SECTIONS = {
     },
     "hazard": {"breaks_mm_per_kyr": "hazard_breaks_mm_per_kyr", "names": "hazard_names"},
 }
-
-#: Fields holding a raster path or a number.
-VALUE_FIELDS = ("runoff", "precipitation", "aet", "pco2", "elevation", "temperature", "soluble_fraction")
-#: Fields holding only a path.
-PATH_FIELDS = ("lithology", "rocks", "grid_like", "out")
-
 
 @dataclass(frozen=True)
 class MapSettings:
@@ -178,9 +159,9 @@ def _choice(value, choices, what):
 def check_settings(s: MapSettings) -> None:
     """One-line errors for settings that cannot work together."""
     where = f"job file {s.job_file}: " if s.job_file else ""
-    _choice(s.chemistry, CHEMISTRIES, f"{where}chemistry")
-    _choice(s.pco2_units, PCO2_UNITS, f"{where}pco2 units")
-    _choice(s.negative_runoff, NEGATIVE_RUNOFF, f"{where}negative runoff handling")
+    _choice(s.chemistry, CHOICES["chemistry"], f"{where}chemistry")
+    _choice(s.pco2_units, CHOICES["pco2_units"], f"{where}pco2 units")
+    _choice(s.negative_runoff, CHOICES["negative_runoff"], f"{where}negative runoff handling")
     for layer in s.layers:
         _choice(layer, tuple(LAYERS), f"{where}layer")
     if not s.layers:
@@ -220,15 +201,15 @@ def check_settings(s: MapSettings) -> None:
         raise InputError(f"{where}gdal_cache_mb {s.gdal_cache_mb!r} must be an integer from 16 to 65536 (MB)")
     if not (isinstance(s.block_size, int) and 16 <= s.block_size <= 8192 and s.block_size % 16 == 0):
         raise InputError(f"{where}block_size {s.block_size!r} must be a multiple of 16 from 16 to 8192 cells; e.g. 512")
-    _choice(s.layout, ("auto", "cog", "tiled"), f"{where}layout")
-    _choice(s.compress, ("deflate", "zstd"), f"{where}compression")
-    if s.lithology_resampling in ("bilinear", "cubic", "average", "cubic_spline", "lanczos"):
+    _choice(s.layout, CHOICES["layout"], f"{where}layout")
+    _choice(s.compress, CHOICES["compress"], f"{where}compression")
+    if s.lithology_resampling in REFUSED_LITHOLOGY_RESAMPLING:
         raise InputError(
             f"{where}lithology resampling {s.lithology_resampling!r} is refused: interpolating "
             "categorical codes invents classes; use nearest or mode (or auto)"
         )
-    _choice(s.lithology_resampling, ("auto", "nearest", "mode"), f"{where}lithology resampling")
-    _choice(s.continuous_resampling, ("auto", "bilinear", "cubic", "average", "nearest"), f"{where}continuous resampling")
+    _choice(s.lithology_resampling, CHOICES["lithology_resampling"], f"{where}lithology resampling")
+    _choice(s.continuous_resampling, CHOICES["continuous_resampling"], f"{where}continuous resampling")
 
 
 def _parse_value(value, field_name: str, base: Path | None):
@@ -348,8 +329,7 @@ def _coerce(name: str, value, base: Path | None, where: str):
             return tuple(float(v) for v in value)
         if name == "hazard_names":
             return tuple(str(v) for v in value)
-        if name in ("chemistry", "pco2_units", "layout", "compress", "lithology_resampling", "continuous_resampling",
-                    "negative_runoff"):
+        if name in CHOICES:
             return str(value).strip().lower()
     except DenudeError:
         raise

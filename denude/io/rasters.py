@@ -35,8 +35,7 @@ from rasterio.windows import Window
 from denude.errors import GridError, InputError, OutputError
 from denude.io.grid import Grid
 from denude.io.mosaic import is_virtual_path
-
-INT32_NODATA = -2147483648
+from denude.registry import INT32_NODATA
 
 #: Resampling methods by name; the CLI and job file take these names.
 RESAMPLING = {

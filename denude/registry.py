@@ -1,0 +1,111 @@
+"""The one registry of names: input roles, output layers and option choices.
+
+Every list of names that two places need lives here once: the job-file checks, the CLI's
+choices and help, the raster job and the batch all read it. Imports only the numeric core.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from denude.core.constants import CHEMISTRY_MODES
+from denude.core.hazard import HAZARD_NODATA
+
+#: The PCO2 value that asks for Brook et al. (1983) soil CO2 from actual evapotranspiration.
+PCO2_FROM_AET = "from-aet"
+
+
+@dataclass(frozen=True)
+class InputRole:
+    """One raster (or constant) input of a run."""
+
+    name: str
+    categorical: bool
+    unit: str                 # the unit the run expects, e.g. "mm/yr"
+    help: str                 # one line for --help and the job-file template
+
+
+#: Raster inputs, in the order they are read and reported.
+INPUT_ROLES: dict[str, InputRole] = {r.name: r for r in (
+    InputRole("lithology", True, "code", "Lithology codes raster (categorical)."),
+    InputRole("runoff", False, "mm/yr", "Runoff, mm/yr."),
+    InputRole("precipitation", False, "mm/yr", "Precipitation, mm/yr; runoff = P - AET."),
+    InputRole("aet", False, "mm/yr", "Actual evapotranspiration, mm/yr."),
+    InputRole("pco2", False, "see pco2_units", "Soil PCO2, in --pco2-units; or 'from-aet' for Brook et al. (1983)."),
+    InputRole("elevation", False, "m", "Elevation, m above sea level; converts ppmv PCO2 to atm."),
+    InputRole("temperature", False, "degrees C", "Temperature, degrees C."),
+    InputRole("soluble_fraction", False, "fraction 0-1", "Soluble-area fraction of each cell, 0-1; default 1."),
+)}
+
+#: Settings fields holding a raster path or a number (the continuous roles).
+VALUE_FIELDS = tuple(name for name, role in INPUT_ROLES.items() if not role.categorical)
+
+#: Settings fields holding only a path.
+PATH_FIELDS = ("lithology", "rocks", "grid_like", "out")
+
+
+@dataclass(frozen=True)
+class OutputLayer:
+    """One output raster of `denude map` (and of each batch tile)."""
+
+    name: str                 # short name for --layers
+    file: str                 # file name in the output folder
+    dtype: str
+    nodata: float
+    overview_resampling: str
+    units: str
+    quantity: str
+    formula: str
+
+
+INT32_NODATA = -2147483648
+
+#: Output layers selectable with --layers, in their fixed order.
+OUTPUT_LAYERS: dict[str, OutputLayer] = {layer.name: layer for layer in (
+    OutputLayer(
+        "denudation", "denudation_mm_per_kyr.tif", "float32", float("nan"), "average", "mm/kyr",
+        "cell-mean maximum chemical denudation rate",
+        "D = M [Ca]eq q / (rho purity) x soluble-area fraction"),
+    OutputLayer(
+        "dissolved_load", "dissolved_load_mmol_per_l.tif", "float32", float("nan"), "average", "mmol/L",
+        "equilibrium dissolved mineral load (not scaled by area fraction)",
+        "[Ca]eq = (K1 Kc KH PCO2 / (4 K2 gCa gHCO3^2))^(1/3) (calcite; analogues for dolomite, gypsum)"),
+    OutputLayer(
+        "co2_drawdown", "co2_drawdown_t_per_km2_yr.tif", "float32", float("nan"), "average", "t CO2 km-2 yr-1",
+        "CO2 drawn down by dissolution per km2 of cell",
+        "n [Ca]eq q 44.01 x soluble-area fraction"),
+    OutputLayer(
+        "hazard", "hazard_class.tif", "uint8", float(HAZARD_NODATA), "nearest", "class index",
+        "dissolution hazard class from the denudation rate", "class k where breaks[k-1] <= D < breaks[k]"),
+    OutputLayer(
+        "lithology", "lithology_code.tif", "int32", float(INT32_NODATA), "nearest", "code",
+        "lithology code on the target grid", "input lithology, nearest/mode resampled"),
+    OutputLayer(
+        "soluble_fraction", "soluble_area_fraction.tif", "float32", float("nan"), "average", "fraction 0-1",
+        "soluble-rock area fraction of each cell", "0 on insoluble rock, else the soluble-area fraction input"),
+)}
+
+#: Short layer name -> file name (what --layers accepts, and where each layer is written).
+LAYERS: dict[str, str] = {name: layer.file for name, layer in OUTPUT_LAYERS.items()}
+
+#: Layers a zone summary reads.
+ZONE_LAYERS = ("denudation", "co2_drawdown", "hazard", "lithology", "soluble_fraction")
+
+#: Option choices: setting name -> the valid values, the first being the default.
+CHOICES: dict[str, tuple[str, ...]] = {
+    "chemistry": tuple(CHEMISTRY_MODES),
+    "pco2_units": ("atm", "ppmv", "log10atm"),
+    "negative_runoff": ("error", "zero"),
+    "layout": ("auto", "cog", "tiled"),
+    "compress": ("deflate", "zstd"),
+    "lithology_resampling": ("auto", "nearest", "mode"),
+    "continuous_resampling": ("auto", "bilinear", "cubic", "average", "nearest"),
+}
+
+#: Resampling methods refused for the lithology (they interpolate codes and invent classes).
+REFUSED_LITHOLOGY_RESAMPLING = ("bilinear", "cubic", "average", "cubic_spline", "lanczos")
+
+# Named tuples kept for the modules that read them directly.
+CHEMISTRIES = CHOICES["chemistry"]
+PCO2_UNITS = CHOICES["pco2_units"]
+NEGATIVE_RUNOFF = CHOICES["negative_runoff"]
