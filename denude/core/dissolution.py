@@ -73,6 +73,10 @@ def equilibrium_load_mol_per_kg(mineral, temperature_c, pco2_atm, chemistry="whi
     t = np.asarray(temperature_c, dtype=np.float64)
     p = np.asarray(pco2_atm, dtype=np.float64)
     t, p = np.broadcast_arrays(t, p)
+    shape = t.shape
+    # Scalars run through the same 1-D loops as arrays: numpy's vectorised loops and its
+    # scalar path may differ in the last bit, and a cell must not depend on its neighbours.
+    t, p = t.reshape(-1), p.reshape(-1)
     bad = out_of_range_mask(t, p)
     n_bad = int(np.count_nonzero(bad))
     if n_bad:
@@ -82,7 +86,7 @@ def equilibrium_load_mol_per_kg(mineral, temperature_c, pco2_atm, chemistry="whi
             warn_out_of_range(n_bad)
     with np.errstate(invalid="ignore"):
         load = _LOADS[chemistry][mineral](t, p)
-    return load[()] if load.ndim == 0 else load
+    return load.reshape(shape)[()]
 
 
 def equilibrium_load_mol_per_l(mineral, temperature_c, pco2_atm, chemistry="white", warn=True):
@@ -91,5 +95,6 @@ def equilibrium_load_mol_per_l(mineral, temperature_c, pco2_atm, chemistry="whit
     The constants are molal; runoff is a volume, so the load is converted with the
     density of pure water (Kell 1975), ignoring the solute's own volume (< 0.1 % here).
     """
-    molal = equilibrium_load_mol_per_kg(mineral, temperature_c, pco2_atm, chemistry, warn)
-    return molal * water_density_kg_per_l(temperature_c)
+    molal = np.asarray(equilibrium_load_mol_per_kg(mineral, temperature_c, pco2_atm, chemistry, warn))
+    t = np.broadcast_to(np.asarray(temperature_c, dtype=np.float64), molal.shape).reshape(-1)
+    return (molal.reshape(-1) * water_density_kg_per_l(t)).reshape(molal.shape)[()]
