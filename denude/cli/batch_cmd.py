@@ -22,7 +22,7 @@ import typer
 from denude.cli.common import CAUTION, handle_user_errors, one_line, progress_callback
 from denude.cli.map_cmd import map_options, settings_from_options
 from denude.errors import JobFileError
-from denude.execution.tiling import DEFAULT_TILE_SIZE
+from denude.execution import DEFAULT_TILE_SIZE
 
 BATCH_KEYS = ("tile_size", "workers", "scheduler", "retries", "merge", "zones", "zones_layer", "zones_id_field")
 
@@ -114,7 +114,7 @@ def read_batch_job(job: Path):
 
 @handle_user_errors
 def _batch_body(**kwargs):
-    from denude.execution.batch import ZoneSpec, run_batch
+    from denude.execution import ZoneSpec, run_batch
 
     own = {k: kwargs.pop(k) for k in ("dry_run", "quiet", "tile_size", "scheduler", "retries", "retry_failed",
                                        "merge", "zones", "zones_layer", "zones_id_field", "workers")}

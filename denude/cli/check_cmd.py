@@ -8,7 +8,7 @@ import typer
 
 from denude.cli.common import handle_user_errors
 from denude.cli.map_cmd import _signature_with, settings_from_options
-from denude.execution.raster_job import inspect_job
+from denude.execution import inspect_job
 from denude.reports.provenance import check_lines
 
 CHECK_EXTRA = {

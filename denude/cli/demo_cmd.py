@@ -42,8 +42,8 @@ def tile_size_for(width: int, height: int, tiles: int) -> int:
 def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = False,
              tiles: int = 0, workers: Optional[int] = None, quiet: bool = False) -> list[str]:
     """Run the demo chain into ``out``; return lines describing what was written."""
-    from denude.execution.raster_job import resolve_grid, run_map
-    from denude.execution.summaries import summarize_outputs
+    from denude.execution import resolve_grid, run_map
+    from denude.execution import summarize_outputs
     from denude.io.jobfile import build_settings
 
     flags = {"out": str(out), "chemistry": chemistry, "overwrite": overwrite or None}
@@ -51,7 +51,7 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
     watersheds = data / "watersheds.gpkg"
     lines = []
     if tiles and tiles > 1:
-        from denude.execution.batch import ZoneSpec, run_batch
+        from denude.execution import ZoneSpec, run_batch
 
         grid = resolve_grid(settings)
         size = tile_size_for(grid.width, grid.height, tiles)

@@ -13,7 +13,7 @@ from typing import Annotated, Optional
 import typer
 
 from denude.cli.common import CAUTION, handle_user_errors, progress_callback
-from denude.execution.raster_job import inspect_job, limit_malloc_arenas, run_map
+from denude.execution import inspect_job, limit_malloc_arenas, run_map
 from denude.io.jobfile import LAYERS, build_settings
 from denude.reports.provenance import check_lines, summary_lines
 

@@ -26,7 +26,7 @@ def summarize(
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar and no summary lines.")] = False,
 ):
     """Per-zone denudation summaries (mm/kyr, km2, m3/yr, t/yr), planning units and sinkholes."""
-    from denude.execution.summaries import summarize_outputs
+    from denude.execution import summarize_outputs
 
     with progress_callback("summarising rows", quiet) as progress:
         meta = summarize_outputs(

@@ -1,0 +1,13 @@
+"""The execution layer's public face: what the CLI and the library call.
+
+The CLI imports run entry points from here only, so modules inside ``denude.execution``
+can move without touching the commands.
+"""
+
+from denude.execution.raster_job import inspect_job, limit_malloc_arenas, resolve_grid, run_map
+from denude.execution.summaries import summarize_outputs
+from denude.execution.batch import ZoneSpec, run_batch
+from denude.execution.tiling import DEFAULT_TILE_SIZE
+
+__all__ = ["DEFAULT_TILE_SIZE", "ZoneSpec", "inspect_job", "limit_malloc_arenas", "resolve_grid",
+           "run_batch", "run_map", "summarize_outputs"]
