@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 from denude.core.constants import CHEMISTRY_MODES
 from denude.core.hazard import HAZARD_NODATA
+from denude.core.soil_co2 import PCO2_UNIT_NAMES
 
 #: The PCO2 value that asks for Brook et al. (1983) soil CO2 from actual evapotranspiration.
 PCO2_FROM_AET = "from-aet"
@@ -94,7 +95,7 @@ ZONE_LAYERS = ("denudation", "co2_drawdown", "hazard", "lithology", "soluble_fra
 #: Option choices: setting name -> the valid values, the first being the default.
 CHOICES: dict[str, tuple[str, ...]] = {
     "chemistry": tuple(CHEMISTRY_MODES),
-    "pco2_units": ("atm", "ppmv", "log10atm"),
+    "pco2_units": PCO2_UNIT_NAMES,
     "negative_runoff": ("error", "zero"),
     "layout": ("auto", "cog", "tiled"),
     "compress": ("deflate", "zstd"),

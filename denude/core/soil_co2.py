@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from denude.errors import InputError
+
 #: Scale height for air pressure, m: p = exp(-z / 8400 m) atm (science notes section 4).
 AIR_PRESSURE_SCALE_HEIGHT_M = 8400.0
 
@@ -32,3 +34,28 @@ def pco2_from_aet_atm(aet_mm_per_yr):
     aet = np.asarray(aet_mm_per_yr, dtype=np.float64)
     aet = np.where(aet < 0.0, 0.0, aet)
     return 10.0 ** (-3.47 + 2.09 * (1.0 - np.exp(-0.00172 * aet)))
+
+
+#: Units a PCO2 input may be given in (the registry's ``CHOICES["pco2_units"]`` lists the same).
+PCO2_UNIT_NAMES = ("atm", "ppmv", "log10atm")
+
+
+def pco2_atm_from_units(value, units: str, elevation_m=None, air_pressure_atm_=None):
+    """PCO2 in atm from a value in ``units`` (atm, ppmv or log10atm); scalar or array.
+
+    ppmv is converted at the air pressure of ``elevation_m`` (m above sea level, exp(-z/8400 m))
+    when given, else at ``air_pressure_atm_`` (atm), else at 1 atm (sea level). The one rule the
+    site calculator and the raster job share; the elevation/pressure are ignored for atm and
+    log10atm (a caller that wants to warn about that does so itself).
+    """
+    if units == "atm":
+        return np.asarray(value, dtype=np.float64)
+    if units == "log10atm":
+        return log10_atm_to_atm(value)
+    if units != "ppmv":
+        raise InputError(f"PCO2 units {units!r}: use one of {', '.join(PCO2_UNIT_NAMES)}")
+    if elevation_m is not None:
+        pressure = air_pressure_atm(elevation_m)
+    else:
+        pressure = 1.0 if air_pressure_atm_ is None else air_pressure_atm_
+    return ppmv_to_atm(value, pressure)

@@ -1,51 +1,16 @@
-"""Settings of a raster job (`denude map`), from command-line flags and/or a TOML job file.
+"""Settings of a raster job (`denude map`, `denude batch`), from command-line flags and/or a TOML job file.
 
-Job file layout (every key optional except those a run needs; flags override the file;
-relative paths resolve against the job file's folder)::
-
-    [inputs]
-    lithology = "lithology.tif"        # categorical codes
-    rocks = "rocks.csv"                # rock table; built-in table when omitted
-    runoff = "runoff.tif"              # mm/yr, raster or number
-    precipitation = "p.tif"            # mm/yr, with aet instead of runoff (runoff = P - AET, >= 0)
-    aet = "aet.tif"                    # actual evapotranspiration, mm/yr
-    pco2 = 0.01                        # soil PCO2; "from-aet" = Brook et al. (1983) from aet
-    pco2_units = "atm"                 # atm | ppmv | log10atm
-    elevation = "dem.tif"              # m, converts ppmv to atm (or air_pressure_atm)
-    air_pressure_atm = 1.0
-    temperature = 10.0                 # degrees C
-    soluble_fraction = 1.0             # soluble-area fraction of each cell, 0-1
-
-    [grid]                             # default: the lithology raster's grid
-    like = "other.tif"                 # or crs + resolution (+ bounds):
-    crs = "EPSG:3035"
-    resolution = 1000.0                # CRS units; one number or [x, y]
-    bounds = [left, bottom, right, top]  # CRS units; default: the lithology extent in crs,
-                                       # snapped outward to multiples of the resolution
-
-    [run]
-    out = "out"
-    chemistry = "white"                # white | speciated
-    overwrite = false
-    workers = 2
-    block_size = 512                   # cells, also the output tile size
-    gdal_cache_mb = 128
-    layers = ["denudation", ...]       # subset of LAYERS; default all
-    layout = "auto"                    # auto | cog | tiled
-    compress = "deflate"               # deflate | zstd
-    lithology_resampling = "auto"      # auto | nearest | mode
-    continuous_resampling = "auto"     # auto | bilinear | cubic | average | nearest
-    negative_runoff = "error"          # error | zero (negative runoff cells taken as 0 mm/yr)
-
-    [hazard]
-    breaks_mm_per_kyr = [5, 20, 50, 150]
-    names = ["negligible", "low", "moderate", "high", "very high"]
+The job file has the sections ``[inputs]``, ``[grid]``, ``[run]``, ``[hazard]`` and ``[batch]``;
+``JOB_TABLE`` below is the one list of their keys (every key optional except those a run needs;
+flags override the file; relative paths resolve against the job file's folder). `denude init
+DIR` writes a commented template generated from that table (``job_template``).
 """
 
 from __future__ import annotations
 
 import dataclasses
 import difflib
+import json
 import math
 import os
 from dataclasses import dataclass
@@ -56,32 +21,118 @@ try:  # Python 3.11+
 except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
+from denude.cautions import CAUTION
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
-from denude.errors import DenudeError, InputError, JobFileError
+from denude.errors import DenudeError, InputError, JobFileError, OutputError
 
-from denude.registry import (CHEMISTRIES, CHOICES, LAYERS, NEGATIVE_RUNOFF, PATH_FIELDS, PCO2_FROM_AET,
-                             PCO2_UNITS, REFUSED_LITHOLOGY_RESAMPLING, VALUE_FIELDS)
+from denude.registry import (CHOICES, INPUT_ROLES, LAYERS, PATH_FIELDS, PCO2_FROM_AET,
+                             REFUSED_LITHOLOGY_RESAMPLING, VALUE_FIELDS)
 
-#: Job-file sections -> {key: MapSettings field}.
-SECTIONS = {
+def available_cores() -> int:
+    """Cores this process may run on (``os.sched_getaffinity``; ``os.cpu_count`` where that is
+    missing): the default number of parallel workers of every command."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class JobKey:
+    """One key of a job-file section: the settings field it fills, an example value for the
+    template `denude init` writes, a one-line help, and whether the template leaves it active."""
+
+    field: str
+    example: object
+    help: str
+    active: bool = False
+
+
+def _role_help(name: str) -> str:
+    return INPUT_ROLES[name].help
+
+
+def _choices(name: str) -> str:
+    return " | ".join(CHOICES[name])
+
+
+#: The one table of job-file sections: section -> {key: JobKey}. The loader, the [batch]
+#: reader and the `denude init` template all read it.
+JOB_TABLE: dict[str, dict[str, JobKey]] = {
     "inputs": {
-        "lithology": "lithology", "rocks": "rocks", "runoff": "runoff",
-        "precipitation": "precipitation", "aet": "aet", "pco2": "pco2",
-        "pco2_units": "pco2_units", "elevation": "elevation",
-        "air_pressure_atm": "air_pressure_atm", "temperature": "temperature",
-        "soluble_fraction": "soluble_fraction",
+        "lithology": JobKey("lithology", "lithology.tif", _role_help("lithology"), True),
+        "rocks": JobKey("rocks", "rocks.csv", "Rock table CSV (code,name,mineral,density_g_cm3,purity); "
+                        "built-in table when omitted.", True),
+        "runoff": JobKey("runoff", "runoff.tif", "Runoff, mm/yr: a raster path or a number.", True),
+        "precipitation": JobKey("precipitation", "precipitation.tif",
+                                "Precipitation, mm/yr, with aet instead of runoff (runoff = P - AET, >= 0)."),
+        "aet": JobKey("aet", "aet.tif", "Actual evapotranspiration, mm/yr: a raster path or a number."),
+        "pco2": JobKey("pco2", 0.01, f"Soil PCO2 in pco2_units (raster or number), or \"{PCO2_FROM_AET}\" "
+                       "for Brook et al. (1983) from aet.", True),
+        "pco2_units": JobKey("pco2_units", CHOICES["pco2_units"][0], f"Units of pco2: {_choices('pco2_units')}.", True),
+        "elevation": JobKey("elevation", "dem.tif", "Elevation, m above sea level (raster or number); "
+                            "converts ppmv PCO2 to atm."),
+        "air_pressure_atm": JobKey("air_pressure_atm", 1.0, "Air pressure, atm, for ppmv PCO2, instead of "
+                                   "elevation (default 1 atm)."),
+        "temperature": JobKey("temperature", 10.0, "Temperature, degrees C: a raster path or a number.", True),
+        "soluble_fraction": JobKey("soluble_fraction", 1.0, _role_help("soluble_fraction")),
     },
-    "grid": {"like": "grid_like", "crs": "grid_crs", "resolution": "grid_resolution", "bounds": "grid_bounds"},
+    "grid": {
+        "like": JobKey("grid_like", "other.tif", "Use this raster's grid (default: the lithology raster's grid)."),
+        "crs": JobKey("grid_crs", "EPSG:3035", "Or a target CRS, with resolution."),
+        "resolution": JobKey("grid_resolution", 1000.0, "Cell size in CRS units: one number or [x, y]."),
+        "bounds": JobKey("grid_bounds", [4000000.0, 2600000.0, 4100000.0, 2700000.0],
+                         "[left, bottom, right, top] in CRS units; default: the lithology extent in crs, "
+                         "snapped outward to whole cells."),
+    },
     "run": {
-        "out": "out", "chemistry": "chemistry", "overwrite": "overwrite", "workers": "workers",
-        "block_size": "block_size", "gdal_cache_mb": "gdal_cache_mb", "layers": "layers",
-        "layout": "layout", "compress": "compress",
-        "lithology_resampling": "lithology_resampling",
-        "continuous_resampling": "continuous_resampling",
-        "negative_runoff": "negative_runoff",
+        "out": JobKey("out", "out", "Output folder (refused if it exists, unless overwrite).", True),
+        "chemistry": JobKey("chemistry", CHOICES["chemistry"][0],
+                            f"{_choices('chemistry')}: White (1984) closed form or full carbonate speciation.", True),
+        "overwrite": JobKey("overwrite", False, "Replace an existing output folder."),
+        "workers": JobKey("workers", 2, "Parallel workers (default: the cores available)."),
+        "block_size": JobKey("block_size", 512, "Block and output tile size, cells (a multiple of 16)."),
+        "gdal_cache_mb": JobKey("gdal_cache_mb", 128, "GDAL block cache, MB."),
+        "layers": JobKey("layers", list(LAYERS), "Output layers (default all)."),
+        "layout": JobKey("layout", CHOICES["layout"][0], f"{_choices('layout')}: COG up to 8192 x 8192 cells, "
+                         "else tiled BigTIFF."),
+        "compress": JobKey("compress", CHOICES["compress"][0], f"{_choices('compress')}."),
+        "lithology_resampling": JobKey("lithology_resampling", CHOICES["lithology_resampling"][0],
+                                       f"{_choices('lithology_resampling')} (interpolating methods are refused)."),
+        "continuous_resampling": JobKey("continuous_resampling", CHOICES["continuous_resampling"][0],
+                                        f"{_choices('continuous_resampling')}."),
+        "negative_runoff": JobKey("negative_runoff", CHOICES["negative_runoff"][0],
+                                  f"{_choices('negative_runoff')}: refuse negative runoff cells, or take them "
+                                  "as 0 mm/yr (counted in a warning)."),
     },
-    "hazard": {"breaks_mm_per_kyr": "hazard_breaks_mm_per_kyr", "names": "hazard_names"},
+    "hazard": {
+        "breaks_mm_per_kyr": JobKey("hazard_breaks_mm_per_kyr", list(DEFAULT_BREAKS_MM_PER_KYR),
+                                    "Class breaks, mm/kyr, increasing."),
+        "names": JobKey("hazard_names", list(DEFAULT_CLASS_NAMES), "Class names, one more than the breaks."),
+    },
+    "batch": {
+        "tile_size": JobKey("tile_size", 4096, "Tile side, cells, a multiple of 16 (`denude batch` only)."),
+        "workers": JobKey("workers", 2, "Local worker processes (default: the cores available; 0 = in this "
+                          "process)."),
+        "scheduler": JobKey("scheduler", "tcp://SCHEDULER:8786", "Run on an existing Dask cluster."),
+        "retries": JobKey("retries", 0, "Extra attempts for a failing tile."),
+        "merge": JobKey("merge", False, "Also write one merged cloud-optimised GeoTIFF per layer."),
+        "zones": JobKey("zones", "watersheds.gpkg", "Zone polygons: per-zone summaries merged from the tiles."),
+        "zones_layer": JobKey("zones_layer", "watersheds", "Layer of the zone file."),
+        "zones_id_field": JobKey("zones_id_field", "watershed_id", "Zone id field (default: feature ids)."),
+    },
 }
+
+#: Sections that fill MapSettings; [batch] holds the options of `denude batch` only.
+BATCH_SECTION = "batch"
+
+#: Job-file sections -> {key: MapSettings field} (the map sections of ``JOB_TABLE``).
+SECTIONS = {section: {key: spec.field for key, spec in keys.items()}
+            for section, keys in JOB_TABLE.items() if section != BATCH_SECTION}
+
+#: [batch] keys (options of `run_batch`, not MapSettings fields).
+BATCH_KEYS = tuple(JOB_TABLE[BATCH_SECTION])
+
 
 @dataclass(frozen=True)
 class MapSettings:
@@ -106,7 +157,7 @@ class MapSettings:
     out: str | None = None
     chemistry: str = "white"
     overwrite: bool = False
-    workers: int = 2
+    workers: int = dataclasses.field(default_factory=available_cores)  # threads
     block_size: int = 512                       # cells
     gdal_cache_mb: int = 128                    # MB of GDAL block cache (streaming needs few blocks; bench_map.py)
     layers: tuple = tuple(LAYERS)
@@ -149,6 +200,12 @@ def is_constant(value) -> bool:
     return isinstance(value, float)
 
 
+#: How a choice setting is named in its messages when no flag or job key is known.
+_CHOICE_WHAT = {"pco2_units": "pco2 units", "negative_runoff": "negative runoff handling",
+                "compress": "compression", "lithology_resampling": "lithology resampling",
+                "continuous_resampling": "continuous resampling"}
+
+
 def _choice(value, choices, what):
     if value not in choices:
         close = difflib.get_close_matches(str(value), choices, n=1)
@@ -156,16 +213,30 @@ def _choice(value, choices, what):
         raise InputError(f"{what} {value!r} is not known; {hint}use one of {', '.join(choices)}")
 
 
+def check_choice(name: str, value, what: str | None = None) -> None:
+    """The one check of a choice setting (``CHOICES[name]``, or the layer names for ``layers``):
+    a one-line error naming ``what`` (the flag, the job-file key, or the setting), the nearest
+    valid value and all of them."""
+    what = what or _CHOICE_WHAT.get(name, name.replace("_", " "))
+    if name == "layers":
+        if not value:
+            raise InputError(f"{what}: no output layers selected; choose from {', '.join(LAYERS)}")
+        for layer in value:
+            _choice(layer, tuple(LAYERS), f"{what}: layer" if what != "layers" else "layer")
+        return
+    if name == "lithology_resampling" and value in REFUSED_LITHOLOGY_RESAMPLING:
+        raise InputError(
+            f"{what} {value!r} is refused: interpolating categorical codes invents classes; use nearest "
+            "or mode (or auto)"
+        )
+    _choice(value, CHOICES[name], what)
+
+
 def check_settings(s: MapSettings) -> None:
     """One-line errors for settings that cannot work together."""
     where = f"job file {s.job_file}: " if s.job_file else ""
-    _choice(s.chemistry, CHOICES["chemistry"], f"{where}chemistry")
-    _choice(s.pco2_units, CHOICES["pco2_units"], f"{where}pco2 units")
-    _choice(s.negative_runoff, CHOICES["negative_runoff"], f"{where}negative runoff handling")
-    for layer in s.layers:
-        _choice(layer, tuple(LAYERS), f"{where}layer")
-    if not s.layers:
-        raise InputError(f"{where}no output layers selected; choose from {', '.join(LAYERS)}")
+    for name in ("chemistry", "pco2_units", "negative_runoff", "layers"):
+        check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
     if s.temperature is None:
         raise InputError(f"{where}no temperature given; give --temperature as a raster (degrees C) or a number")
     if s.runoff is None and (s.precipitation is None or s.aet is None):
@@ -201,15 +272,8 @@ def check_settings(s: MapSettings) -> None:
         raise InputError(f"{where}gdal_cache_mb {s.gdal_cache_mb!r} must be an integer from 16 to 65536 (MB)")
     if not (isinstance(s.block_size, int) and 16 <= s.block_size <= 8192 and s.block_size % 16 == 0):
         raise InputError(f"{where}block_size {s.block_size!r} must be a multiple of 16 from 16 to 8192 cells; e.g. 512")
-    _choice(s.layout, CHOICES["layout"], f"{where}layout")
-    _choice(s.compress, CHOICES["compress"], f"{where}compression")
-    if s.lithology_resampling in REFUSED_LITHOLOGY_RESAMPLING:
-        raise InputError(
-            f"{where}lithology resampling {s.lithology_resampling!r} is refused: interpolating "
-            "categorical codes invents classes; use nearest or mode (or auto)"
-        )
-    _choice(s.lithology_resampling, CHOICES["lithology_resampling"], f"{where}lithology resampling")
-    _choice(s.continuous_resampling, CHOICES["continuous_resampling"], f"{where}continuous resampling")
+    for name in ("layout", "compress", "lithology_resampling", "continuous_resampling"):
+        check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
 
 
 def _parse_value(value, field_name: str, base: Path | None):
@@ -257,35 +321,71 @@ def load_toml(path) -> dict:
         raise JobFileError(f"job file {path} is not a UTF-8 text file; give a TOML file") from None
 
 
-def read_job_file(path) -> dict:
-    """Read a TOML job file into {MapSettings field: value}, paths resolved against its folder.
-    Unknown sections or keys are errors that suggest the nearest valid name."""
-    path = Path(path)
+def _job_tables(path: Path) -> dict:
+    """The raw tables of a job file with every section and key checked against ``JOB_TABLE``:
+    an unknown name is an error that suggests the nearest valid one."""
     data = load_toml(path)
-    base = path.resolve().parent
-    fields: dict = {"job_file": str(path.resolve())}
-    all_keys = {k: sec for sec, keys in SECTIONS.items() for k in keys}
+    all_keys: dict = {}
+    for sec, keys in JOB_TABLE.items():
+        for k in keys:
+            all_keys.setdefault(k, sec)
     for section, table in data.items():
-        if section not in SECTIONS:
-            close = difflib.get_close_matches(section, list(SECTIONS), n=1)
+        if section not in JOB_TABLE:
+            close = difflib.get_close_matches(section, list(JOB_TABLE), n=1)
             if not isinstance(table, dict) and section in all_keys:
                 hint = f"put it under [{all_keys[section]}]"
             else:
-                hint = f"did you mean [{close[0]}]?" if close else f"use one of {', '.join('[' + s + ']' for s in SECTIONS)}"
+                hint = f"did you mean [{close[0]}]?" if close else f"use one of {', '.join('[' + s + ']' for s in JOB_TABLE)}"
             raise JobFileError(f"job file {path}: unknown section or key {section!r}; {hint}")
         if not isinstance(table, dict):
             raise JobFileError(f"job file {path}: {section!r} must be a [{section}] table")
+        for key in table:
+            if key in JOB_TABLE[section]:
+                continue
+            if key in all_keys:
+                hint = f"it belongs in [{all_keys[key]}]"
+            else:
+                close = difflib.get_close_matches(key, list(JOB_TABLE[section]) + list(all_keys), n=1)
+                hint = f"did you mean {close[0]!r}?" if close else f"valid keys: {', '.join(JOB_TABLE[section])}"
+            raise JobFileError(f"job file {path}: unknown key {key!r} in [{section}]; {hint}")
+    return data
+
+
+def read_job_file(path) -> dict:
+    """Read a TOML job file into {MapSettings field: value}, paths resolved against its folder.
+    Unknown sections or keys are errors that suggest the nearest valid name. A [batch] table is
+    checked too but left to `read_batch_options` (it holds no MapSettings field)."""
+    path = Path(path)
+    data = _job_tables(path)
+    base = path.resolve().parent
+    fields: dict = {"job_file": str(path.resolve())}
+    for section, table in data.items():
+        if section == BATCH_SECTION:
+            continue
         for key, value in table.items():
-            if key not in SECTIONS[section]:
-                if key in all_keys:
-                    hint = f"it belongs in [{all_keys[key]}]"
-                else:
-                    close = difflib.get_close_matches(key, list(SECTIONS[section]) + list(all_keys), n=1)
-                    hint = f"did you mean {close[0]!r}?" if close else f"valid keys: {', '.join(SECTIONS[section])}"
-                raise JobFileError(f"job file {path}: unknown key {key!r} in [{section}]; {hint}")
             name = SECTIONS[section][key]
             fields[name] = _coerce(name, value, base, f"job file {path}: [{section}] {key}")
     return fields
+
+
+def read_batch_options(path) -> dict:
+    """The [batch] table of a job file as {key: value} (empty without one): integers, a bool for
+    ``merge``, strings, and ``zones`` as an absolute path resolved against the file's folder."""
+    path = Path(path)
+    table = _job_tables(path).get(BATCH_SECTION, {})
+    base = path.resolve().parent
+    out: dict = {}
+    for key, value in table.items():
+        where = f"job file {path}: [{BATCH_SECTION}] {key}"
+        kind = type(JOB_TABLE[BATCH_SECTION][key].example)
+        if kind is int and (isinstance(value, bool) or not isinstance(value, int)):
+            raise JobFileError(f"{where} = {value!r} must be an integer")
+        if kind is bool and not isinstance(value, bool):
+            raise JobFileError(f"{where} = {value!r} must be true or false")
+        if kind is str and not isinstance(value, str):
+            raise JobFileError(f"{where} = {value!r} must be a string")
+        out[key] = _parse_path(value, base) if key == "zones" else value
+    return out
 
 
 def _coerce(name: str, value, base: Path | None, where: str):
@@ -324,13 +424,17 @@ def _coerce(name: str, value, base: Path | None, where: str):
             return value
         if name == "layers":
             items = value.split(",") if isinstance(value, str) else list(value)
-            return tuple(str(v).strip() for v in items if str(v).strip())
+            layers = tuple(str(v).strip() for v in items if str(v).strip())
+            check_choice(name, layers, where)
+            return layers
         if name == "hazard_breaks_mm_per_kyr":
             return tuple(float(v) for v in value)
         if name == "hazard_names":
             return tuple(str(v) for v in value)
         if name in CHOICES:
-            return str(value).strip().lower()
+            text = str(getattr(value, "value", value)).strip().lower()   # a str Enum member or a str
+            check_choice(name, text, where)
+            return text
     except DenudeError:
         raise
     except (TypeError, ValueError):
@@ -362,3 +466,59 @@ def build_settings(flags: dict | None = None, job_file=None) -> MapSettings:
     if values.get("pco2") is None and values.get("aet") is not None:
         values["pco2"] = PCO2_FROM_AET
     return MapSettings(**values)
+
+
+# ----------------------------------------------------------------------------- starter files
+JOB_TEMPLATE_NAME = "job.toml"
+ROCKS_TEMPLATE_NAME = "rocks.csv"
+
+
+def _toml_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    return json.dumps(str(value))        # a TOML basic string: JSON escapes are valid TOML escapes
+
+
+def job_template() -> str:
+    """A commented job file with every key the loader knows, generated from ``JOB_TABLE``.
+    The keys a first run needs are active (edit their values); the others are commented out,
+    showing an example value."""
+    lines = [
+        "# denude job file. Check it with `denude check --job job.toml`, run it with",
+        "# `denude map --job job.toml` (or `denude batch --job job.toml`). Flags override the file;",
+        "# relative paths resolve against this file's folder. Remove the leading '# ' to use a key.",
+        f"# {CAUTION}",
+    ]
+    for section, keys in JOB_TABLE.items():
+        lines += ["", f"[{section}]"]
+        for key, spec in keys.items():
+            lines.append(f"# {spec.help}")
+            lines.append(("" if spec.active else "# ") + f"{key} = {_toml_value(spec.example)}")
+    return "\n".join(lines) + "\n"
+
+
+def write_starter_files(folder, overwrite: bool = False) -> list[Path]:
+    """Write ``job.toml`` (the commented template) and ``rocks.csv`` (an editable copy of the
+    built-in rock table) into ``folder`` (created if needed); return the paths written. Existing
+    files are refused unless ``overwrite``."""
+    from denude.core.rocks import RockTable
+    from denude.io.rock_csv import write_rock_table
+
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise OutputError(f"{folder} is a file; give a folder for the starter files")
+    targets = [folder / JOB_TEMPLATE_NAME, folder / ROCKS_TEMPLATE_NAME]
+    existing = [str(p) for p in targets if p.exists()]
+    if existing and not overwrite:
+        raise OutputError(f"{', '.join(existing)} already exists; choose another folder or pass --overwrite")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        targets[0].write_text(job_template(), encoding="utf-8")
+        write_rock_table(RockTable.builtin(), targets[1])
+    except OSError as exc:
+        raise OutputError(f"cannot write the starter files into {folder} ({exc.strerror}); choose a writable folder") from None
+    return targets
