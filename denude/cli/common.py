@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import contextlib
 import functools
+import json
 import sys
 import warnings
 from typing import Callable, Iterator, Optional, TypeVar
@@ -28,11 +29,14 @@ def handle_user_errors(func: F) -> F:
     """Decorator for command bodies: DenudeError -> one line on stderr, exit code 1.
 
     The project's own warnings (out-of-range cells, partial coverage) are shown as one-line
-    notes on stderr.
+    notes on stderr. A body that returns a dict (its `--json` record) has it printed as one
+    JSON object on stdout, with those warnings added as ``warnings``; a record holding an
+    ``error`` (e.g. failed batch tiles) is printed first, then the error as above (exit 1).
     """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        notes: list[str] = []
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", DenudeWarning)
             try:
@@ -43,11 +47,19 @@ def handle_user_errors(func: F) -> F:
             finally:
                 for item in caught:
                     if issubclass(item.category, DenudeWarning):
-                        typer.echo(f"denude: warning: {one_line(item.message)}", err=True)
+                        notes.append(one_line(item.message))
+                        typer.echo(f"denude: warning: {notes[-1]}", err=True)
                     else:
                         warnings.showwarning(
                             item.message, item.category, item.filename, item.lineno
                         )
+        if isinstance(result, dict):
+            error = result.get("error")
+            typer.echo(json.dumps({**result, "warnings": notes}, indent=2, default=str))
+            if error:
+                typer.echo(f"denude: error: {one_line(error)}", err=True)
+                raise typer.Exit(code=1)
+            return None
         return result
 
     return wrapper  # type: ignore[return-value]

@@ -6,7 +6,7 @@ runs as a tiled batch (about N tiles) and the watershed summary is merged from p
 partial sums.
 """
 
-from __future__ import annotations
+# annotations stay objects (no `from __future__ import annotations`): typer reads the aliases
 
 import math
 from pathlib import Path
@@ -15,6 +15,7 @@ from typing import Annotated, Optional
 import typer
 
 from denude.cli.common import CAUTION, handle_user_errors
+from denude.cli.options import CHEMISTRY_METAVAR, Workers
 from denude.errors import InputError
 
 DEMO_FOLDER = "demo_rasters"
@@ -46,7 +47,8 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
     from denude.execution import summarize_outputs
     from denude.io.jobfile import build_settings
 
-    flags = {"out": str(out), "chemistry": chemistry, "overwrite": overwrite or None}
+    flags = {"out": str(out), "chemistry": chemistry, "overwrite": overwrite or None,
+             "workers": None if tiles and tiles > 1 else workers}
     settings = build_settings(flags, job_file=data / "job.toml")
     watersheds = data / "watersheds.gpkg"
     lines = []
@@ -82,8 +84,8 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
 def demo(
     out: Annotated[Path, typer.Argument(help="Output folder (refused if it exists, unless --overwrite).")],
     tiles: Annotated[int, typer.Option(help="Run as a tiled batch of about this many tiles (0 = one raster job).", min=0)] = 0,
-    chemistry: Annotated[str, typer.Option(help="white (closed form) or speciated.")] = "white",
-    workers: Annotated[Optional[int], typer.Option(help="Worker processes for --tiles (default: cores).", min=1)] = None,
+    chemistry: Annotated[str, typer.Option(metavar=CHEMISTRY_METAVAR, help="white (closed form) or speciated.")] = "white",
+    workers: Workers = None,
     data: Annotated[Optional[Path], typer.Option(help="Demo data folder (default: demo_rasters/ of the checkout).")] = None,
     overwrite: Annotated[bool, typer.Option(help="Replace an existing output folder.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")] = False,

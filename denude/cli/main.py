@@ -12,6 +12,7 @@ import typer
 from typer.core import TyperGroup
 
 from denude import __version__
+from denude.cli.options import rename_old_spellings
 from denude.errors import DenudeError
 
 
@@ -19,6 +20,7 @@ class OneLineErrorGroup(TyperGroup):
     """A command group whose usage errors are one line on stderr (exit code 2)."""
 
     def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        args = rename_old_spellings(list(sys.argv[1:] if args is None else args))
         try:
             rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
                               standalone_mode=False, **extra)
@@ -57,10 +59,12 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    rich_markup_mode=None,          # plain help text: units in [brackets] stay visible
 )
 
 #: Command modules, each exposing ``register(app)``. Listed here so names live in one place.
 COMMAND_MODULES = (
+    "denude.cli.init_cmd",
     "denude.cli.site_cmd",
     "denude.cli.map_cmd",
     "denude.cli.check_cmd",

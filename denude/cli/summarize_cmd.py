@@ -1,13 +1,16 @@
 """`denude summarize`: per-zone summaries of a `denude map` output folder."""
 
-from __future__ import annotations
+# annotations stay objects (no `from __future__ import annotations`): typer reads the aliases
 
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
 
+from denude.cli import options as o
 from denude.cli.common import CAUTION, handle_user_errors, progress_callback
+from denude.execution import summarize_outputs
+from denude.reports.json_output import summarize_record
 
 
 def summarize(
@@ -21,19 +24,22 @@ def summarize(
     units_id_field: Annotated[Optional[str], typer.Option(help="Planning-unit id field.")] = None,
     points: Annotated[Optional[Path], typer.Option(help="Sinkhole points: sampled and counted per zone (layer sinkholes).", exists=True, dir_okay=False)] = None,
     points_layer: Annotated[Optional[str], typer.Option(help="Layer of the sinkhole file.")] = None,
-    workers: Annotated[Optional[int], typer.Option(min=1, help="Processes (default: 1 for small grids or fewer than 4 CPUs, else half the CPUs, at most 4).")] = None,
+    workers: Annotated[Optional[int], typer.Option(
+        "--workers", metavar="N", min=1,
+        help="Parallel workers (default: from the grid size and the cores available; 1 on small grids).")] = None,
     overwrite: Annotated[bool, typer.Option(help="Replace existing outputs.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar and no summary lines.")] = False,
+    as_json: o.AsJson = False,
 ):
     """Per-zone denudation summaries (mm/kyr, km2, m3/yr, t/yr), planning units and sinkholes."""
-    from denude.execution import summarize_outputs
-
     with progress_callback("summarising rows", quiet) as progress:
         meta = summarize_outputs(
             outdir, zones, layer=layer, id_field=id_field, units_path=units, units_layer=units_layer,
             units_id_field=units_id_field, points_path=points, points_layer=points_layer,
             out_path=out, overwrite=overwrite, progress=progress, workers=workers,
         )
+    if as_json:
+        return summarize_record(meta, out)
     if not quiet:
         layers = ", ".join(f"{name} ({count})" for name, count in meta["outputs"]["layers"].items())
         typer.echo(f"wrote {out}: {layers}")
@@ -42,6 +48,7 @@ def summarize(
             typer.echo(f"repaired {repaired} invalid geometries (shapely.make_valid)")
         typer.echo(f"cell areas: {meta['method']['cell_area']}")
     typer.echo(CAUTION)
+    return None
 
 
 def register(app: typer.Typer) -> None:

@@ -6,7 +6,8 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from denude.core.constants import CO2_PER_MOL, MOLAR_MASS_G_PER_MOL
+from denude.core.constants import (CO2_PER_MOL, MOLAR_MASS_G_PER_MOL, PCO2_MAX_ATM, TEMPERATURE_MAX_C,
+                                   TEMPERATURE_MIN_C)
 from denude.core.dissolution import equilibrium_load_mol_per_l
 from denude.core.rates import (
     co2_drawdown_t_per_km2_yr,
@@ -15,6 +16,7 @@ from denude.core.rates import (
     mineral_flux_t_per_km2_yr,
 )
 from denude.core.rocks import RockType
+from denude.errors import InputError
 
 
 @dataclass(frozen=True)
@@ -84,3 +86,17 @@ def site_rates(
 def finite_or_none(value: float):
     """JSON has no NaN: map non-finite numbers to None."""
     return float(value) if np.isfinite(value) else None
+
+
+def check_site_inputs(temperature_c: float, pco2_atm: float, temperature_name: str = "temperature_c",
+                      pco2_name: str = "pco2_atm", pco2_hint: str = "") -> None:
+    """One-line errors for a site outside the validity of the constants: temperature
+    0-90 degrees C, 0 < PCO2 <= 1 atm. ``*_name`` say how the caller names the value (a
+    flag or an argument); ``pco2_hint`` is added to the PCO2 message."""
+    if not (TEMPERATURE_MIN_C <= temperature_c <= TEMPERATURE_MAX_C):
+        raise InputError(
+            f"{temperature_name} {temperature_c} degrees C is outside {TEMPERATURE_MIN_C:g}-{TEMPERATURE_MAX_C:g} "
+            "degrees C, the validity of the constants"
+        )
+    if not (0.0 < pco2_atm <= PCO2_MAX_ATM):
+        raise InputError(f"{pco2_name} is {pco2_atm:g} atm, outside 0 < PCO2 <= 1 atm{pco2_hint}")
