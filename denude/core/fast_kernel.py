@@ -10,6 +10,7 @@ one that releases the GIL for callers that run blocks on their own worker thread
 from __future__ import annotations
 
 import math
+import types
 
 import numba
 import numpy as np
@@ -105,5 +106,15 @@ def _cell_loop(codes, litho_ok, q, p, t, f, code_min, code_row, row_mineral, row
     return n_nodata, n_unknown, n_range, n_below, n_zero
 
 
+def _renamed(func, name: str):
+    """The same code under another name. numba's on-disk cache is keyed by the function's
+    name, not by the build options: two builds of one function would share a cache index, and
+    the serial build could load the parallel machine code (a worker thread then enters the
+    work queue concurrently and the process aborts)."""
+    copy = types.FunctionType(func.__code__, func.__globals__, name, func.__defaults__, func.__closure__)
+    copy.__qualname__ = name
+    return copy
+
+
 cell_loop_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_cell_loop)
-cell_loop_serial = numba.njit(parallel=False, cache=True, nogil=True)(_cell_loop)
+cell_loop_serial = numba.njit(parallel=False, cache=True, nogil=True)(_renamed(_cell_loop, "_cell_loop_serial"))
