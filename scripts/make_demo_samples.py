@@ -124,7 +124,26 @@ def build(demo: Path):
         writer = csv.DictWriter(handle, fieldnames=list(truth[0]))
         writer.writeheader()
         writer.writerows(truth)
+    readme = demo / "README.md"
+    if readme.is_file():
+        text = readme.read_text(encoding="utf-8")
+        text = text.split(README_MARKER)[0].rstrip() + "\n\n" + README_SECTION.format(
+            samples=len(samples), zones=len(truth), unsampled=", ".join(UNSAMPLED))
+        readme.write_text(text, encoding="utf-8")
     return len(samples), len(truth)
+
+
+README_MARKER = "## Water samples (invented)"
+README_SECTION = README_MARKER + """
+
+- `water_samples.csv`: {samples} invented samples (three per site, one site per watershed) of
+  {zones} watersheds; {unsampled} have none. Columns as `denude calibrate` reads them
+  (`site_id`, `zone_id`, `temperature_c`, `ca_mg_l`, `mg_mg_l`, `so4_mg_l`,
+  `alkalinity_mg_l_hco3`, `ph`, `discharge_l_s`; `sample_date` is ignored). Written by
+  `scripts/make_demo_samples.py` after `make_demo_region.py`, built backwards from known
+  saturation ratios: calibrating the demo map (chemistry "white") gives them back.
+- `water_samples_ratios.csv`: those ratios per watershed (observed / maximum), for the tests.
+"""
 
 
 def main(argv=None):
