@@ -101,6 +101,7 @@ CHOICES: dict[str, tuple[str, ...]] = {
     "compress": ("deflate", "zstd"),
     "lithology_resampling": ("auto", "nearest", "mode"),
     "continuous_resampling": ("auto", "bilinear", "cubic", "average", "nearest"),
+    "unsampled": ("same-rock", "nodata"),          # denude calibrate: zones without samples
 }
 
 #: Resampling methods refused for the lithology (they interpolate codes and invent classes).

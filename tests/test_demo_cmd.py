@@ -91,3 +91,28 @@ def test_summarize_reads_a_batch_folder(demo_single, tmp_path):
     batch = read_csv(tmp_path / "from_batch.csv")
     for zone, row in single.items():
         assert float(batch[zone]["rock_volume_m3_per_yr"]) == pytest.approx(float(row["rock_volume_m3_per_yr"]), rel=1e-9)
+
+
+def test_demo_calibration_recovers_the_invented_ratios(demo_single):
+    # The demo's water samples were built backwards from known ratios (scripts/make_demo_samples.py):
+    # calibrating the demo map must give them back (rounding of the CSV: 1e-6 relative).
+    truth = {}
+    with open(_demo_data() / "water_samples_ratios.csv", newline="") as handle:
+        for row in csv.DictReader(handle):
+            truth[row["watershed_id"]] = float(row["saturation_ratio"])
+    got = read_csv(demo_single / "calibration" / "calibration.csv")
+    for zone, ratio in truth.items():
+        assert got[zone]["ratio_rule"] == "sampled"
+        assert float(got[zone]["saturation_ratio"]) == pytest.approx(ratio, rel=1e-4)
+        assert -3.0 < float(got[zone]["si_calcite"]) < 0.5
+    unsampled = [z for z in got if z not in truth]
+    assert unsampled and all(got[z]["ratio_rule"] == "same_rock" for z in unsampled)
+    side = json.loads((demo_single / "watershed_summary.summary.json").read_text())["sinkhole_evaluation"]
+    assert 0.0 <= side["auc"] <= 1.0 and len(side["classes"]) == 5
+    assert (demo_single / "calibration" / "denudation_expected_mm_per_kyr.tif").is_file()
+
+
+def _demo_data():
+    from denude.cli.demo_cmd import find_demo_data
+
+    return find_demo_data()

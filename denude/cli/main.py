@@ -71,6 +71,7 @@ COMMAND_MODULES = (
     "denude.cli.summarize_cmd",
     "denude.cli.batch_cmd",
     "denude.cli.demo_cmd",
+    "denude.cli.calibrate_cmd",
 )
 
 def _version(value: bool) -> None:

@@ -24,6 +24,7 @@ def summarize(
     units_id_field: Annotated[Optional[str], typer.Option(help="Planning-unit id field.")] = None,
     points: Annotated[Optional[Path], typer.Option(help="Sinkhole points: sampled and counted per zone (layer sinkholes).", exists=True, dir_okay=False)] = None,
     points_layer: Annotated[Optional[str], typer.Option(help="Layer of the sinkhole file.")] = None,
+    breaks_from_record: Annotated[bool, typer.Option(help="With --points: also set hazard class breaks from the sinkhole record (rate quantiles merged until density rises), reported in the sidecar; the map is unchanged.")] = False,
     workers: Annotated[Optional[int], typer.Option(
         "--workers", metavar="N", min=1,
         help="Parallel workers (default: from the grid size and the cores available; 1 on small grids).")] = None,
@@ -37,6 +38,7 @@ def summarize(
             outdir, zones, layer=layer, id_field=id_field, units_path=units, units_layer=units_layer,
             units_id_field=units_id_field, points_path=points, points_layer=points_layer,
             out_path=out, overwrite=overwrite, progress=progress, workers=workers,
+            breaks_from_record=breaks_from_record,
         )
     if as_json:
         return summarize_record(meta, out)
@@ -47,6 +49,12 @@ def summarize(
         if repaired:
             typer.echo(f"repaired {repaired} invalid geometries (shapely.make_valid)")
         typer.echo(f"cell areas: {meta['method']['cell_area']}")
+        evaluation = meta.get("sinkhole_evaluation")
+        if evaluation:
+            dens = ", ".join(f"{c['name']} {c['density_per_km2']:.3g}" for c in evaluation["classes"])
+            typer.echo(f"sinkholes per km2 by class: {dens}; ROC AUC of the rate {evaluation['auc']:.3f}")
+            if "record_breaks" in evaluation:
+                typer.echo(f"breaks from the record: {evaluation['record_breaks']['job_file']}")
     typer.echo(CAUTION)
     return None
 

@@ -8,6 +8,7 @@ from denude.execution.raster_job import inspect_job, limit_malloc_arenas, resolv
 from denude.execution.summaries import summarize_outputs
 from denude.execution.batch import ZoneSpec, run_batch
 from denude.execution.tiling import DEFAULT_TILE_SIZE
+from denude.execution.calibration import run_calibration
 
 __all__ = ["DEFAULT_TILE_SIZE", "ZoneSpec", "inspect_job", "limit_malloc_arenas", "resolve_grid",
-           "run_batch", "run_map", "summarize_outputs"]
+           "run_batch", "run_calibration", "run_map", "summarize_outputs"]

@@ -396,12 +396,14 @@ def summarize_outputs(
     overwrite: bool = False,
     progress: Optional[Callable[[int, int], None]] = None,
     workers: Optional[int] = None,
+    breaks_from_record: bool = False,
 ) -> dict:
     """Summarise a ``denude map`` output folder over zones, optional planning units and
     sinkhole points, and write ``out_path`` (GeoPackage), CSV twins and a
     ``<stem>.summary.json`` sidecar (provenance, method, units). ``progress(done, total)``
     is called with rows of the grid done. ``workers``: processes (None: ``default_workers``;
-    1: in this process). Returns the sidecar content as a dict."""
+    1: in this process). With points, the sidecar holds ``sinkhole_evaluation`` (class densities,
+    ROC AUC; class breaks set from the record with ``breaks_from_record``). Returns the sidecar content as a dict."""
     from denude.io.rock_csv import read_rock_table
     from denude.io.vectors import check_output_path, read_points, read_polygons
 
@@ -511,6 +513,11 @@ def summarize_outputs(
             meta["sinkholes"] = {"file": str(points_path), "layer": points.layer, "count": len(points),
                                  "outside_raster": int((point_rc[0] < 0).sum()),
                                  "reprojected_from": points.reprojected_from}
+            from denude.execution.sinkhole_evaluation import evaluate_sinkholes
+
+            meta["sinkhole_evaluation"] = evaluate_sinkholes(
+                datasets[RATE_TIF], datasets[HAZARD_TIF], areas_row, point_rc, point_values["hazard"],
+                class_names, breaks_from_record, str(points_path))
         meta["inputs"] = {p: {"sha256": f.result()} for p, f in hashes.items()}
         write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta)
         return meta
