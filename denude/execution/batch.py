@@ -33,7 +33,7 @@ from typing import Callable
 import numpy as np
 
 import denude
-from denude.errors import DenudeError, InputError, OutputError
+from denude.errors import BatchError, DenudeError, InputError, OutputError, TileError
 from denude.execution import engines as _engines
 from denude.execution.manifest import (
     MANIFEST_NAME, InputStamps, Manifest, job_key, tile_input_sha256, verify_outputs,
@@ -61,14 +61,6 @@ RASTER_FIELDS = ("lithology", "runoff", "precipitation", "aet", "pco2", "elevati
 MANIFEST_INTERVAL_S = 0.2
 #: Layers a zone summary reads (the summaries module's required files).
 
-
-
-class TileError(DenudeError):
-    """One tile failed (unreadable input, implausible values, unknown codes, write error)."""
-
-
-class BatchError(OutputError):
-    """The batch output folder cannot be used (another job, locked)."""
 
 
 # ----------------------------------------------------------------------------- the tasks
