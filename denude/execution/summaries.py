@@ -218,10 +218,14 @@ def summary_paths(out_path, layers_given: tuple):
 
 
 def summary_meta(tool: str, folder_key: str, folder, out_path, tables, layers: SummaryLayers, csv_paths,
-                 area_method, class_names, grid: Grid, point_rc, hashes: dict) -> tuple[dict, dict]:
-    """(sidecar, GeoPackage layer names) of a summary (the same keys for `summarize` and `batch --zones`)."""
+                 area_method, class_names, grid: Grid, point_rc, hashes: dict,
+                 zones_layer_name: str | None = None) -> tuple[dict, dict]:
+    """(sidecar, GeoPackage layer names) of a summary (the same keys for `summarize` and `batch --zones`).
+    The zone layer keeps the input layer's name unless ``zones_layer_name`` is given."""
     zones = layers.zones
-    layer_names = {ZONES_LAYER: zones.layer if zones.layer not in (UNITS_LAYER, POINTS_LAYER) else ZONES_LAYER}
+    if zones_layer_name is None:
+        zones_layer_name = zones.layer if zones.layer not in (UNITS_LAYER, POINTS_LAYER) else ZONES_LAYER
+    layer_names = {ZONES_LAYER: zones_layer_name}
     meta = {
         **sidecar_head(tool),
         folder_key: str(folder),

@@ -209,14 +209,14 @@ def vrt_xml(crs_wkt: str, transform: tuple, width: int, height: int, dtype: str,
     lines = [f'<VRTDataset rasterXSize="{int(width)}" rasterYSize="{int(height)}">',
              f"  <SRS>{escape(crs_wkt)}</SRS>",
              f"  <GeoTransform>{geo}</GeoTransform>"]
+    if tags:   # dataset-level, as RasterWriter tags the GeoTIFFs
+        lines.append("  <Metadata>")
+        for key, value in tags:
+            lines.append(f"    <MDI key={quoteattr(str(key))}>{escape(str(value))}</MDI>")
+        lines.append("  </Metadata>")
     lines.append(f'  <VRTRasterBand dataType="{gdal_type}" band="1">')
     if description:
         lines.append(f"    <Description>{escape(description)}</Description>")
-    if tags:
-        lines.append("    <Metadata>")
-        for key, value in tags:
-            lines.append(f"      <MDI key={quoteattr(str(key))}>{escape(str(value))}</MDI>")
-        lines.append("    </Metadata>")
     if nodata is not None:
         lines.append(f"    <NoDataValue>{_fmt_number(nodata, dtype)}</NoDataValue>")
     if colormap:
