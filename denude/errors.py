@@ -33,6 +33,23 @@ class ZoneError(InputError):
     """A zone, planning-unit or point layer is unusable (empty, no CRS, bad id field)."""
 
 
+class TileError(DenudeError):
+    """One tile of a batch failed (unreadable input, implausible values, unknown codes, write error)."""
+
+
+class BatchError(OutputError):
+    """The batch output folder cannot be used (another job, locked)."""
+
+
+class EngineError(DenudeError):
+    """An execution engine cannot start (bad worker count, unreachable scheduler)."""
+
+
+class KernelInputError(InputError):
+    """Arrays handed to the numeric kernel are unusable (non-integer codes, a code span too wide,
+    an unknown method)."""
+
+
 class DenudeWarning(UserWarning):
     """Root of the warnings the CLI shows as one-line notes."""
 

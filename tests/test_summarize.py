@@ -18,7 +18,8 @@ from typer.testing import CliRunner
 from denude.cli import summarize_cmd
 from denude.core.hazard import DEFAULT_CLASS_NAMES, classify
 from denude.core.rocks import RockTable
-from denude.execution.summaries import cell_areas_km2, summarize_outputs, zone_partials
+from denude.execution.summaries import summarize_outputs, zone_partials
+from denude.io.grid import cell_areas_km2
 from denude.errors import OutOfRangeWarning
 from denude.io.grid import Grid
 from denude.io.rock_csv import write_rock_table
@@ -428,7 +429,7 @@ def test_strips_equal_one_strip(tmp_path, smooth, monkeypatch):
     geoms = np.array([jagged(X0 + 25_000, Y0 - 20_000, 15_000, seed=s) for s in range(3)], dtype=object)
     whole = zone_partials(outdir, geoms, workers=1).finalize()
     monkeypatch.setattr(summaries, "STRIP_CELLS", 16 * 50)      # 16-row strips: 3 strips
-    datasets, grid = summaries._open_outdir(outdir)
+    datasets, grid = summaries.open_map_folder(outdir)
     assert len(summaries.strip_plan(grid, datasets[summaries.RATE_TIF])) == 3
     for ds in datasets.values():
         ds.close()

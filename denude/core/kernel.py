@@ -33,6 +33,7 @@ from denude.core.rates import (
     effective_runoff_mm_per_yr,
 )
 from denude.core.rocks import RockLookup
+from denude.errors import KernelInputError
 
 #: Output layers of the kernel, in a fixed order: name -> (quantity, unit).
 OUTPUT_LAYERS = {
@@ -104,7 +105,7 @@ def compute_block(
         return _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c,
                                     rocks, chemistry, soluble_fraction, lithology_valid, warn)
     if method != "direct":
-        raise ValueError(f"unknown method {method!r}; choose 'table' or 'direct'")
+        raise KernelInputError(f"unknown kernel method {method!r}; choose 'table' or 'direct'")
     codes = np.asarray(lithology_codes)
     shape = codes.shape
     q = np.broadcast_to(np.asarray(runoff_mm_per_yr, dtype=np.float64), shape)
@@ -188,7 +189,8 @@ def _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperatur
 
     codes = np.asarray(lithology_codes)
     if codes.dtype.kind not in "iub":
-        raise ValueError("lithology codes must be integers")
+        raise KernelInputError(
+            f"lithology codes have dtype {codes.dtype}; give integer codes (codes are categories, never rounded)")
     shape = codes.shape
     # One dtype per argument kind keeps the number of compiled variants small: int32 codes
     # (int64 if they need it), and float32 inputs unless any input is float64.
@@ -256,7 +258,8 @@ def _dense_code_rows(rocks: RockLookup) -> tuple[int, np.ndarray]:
         return 0, np.full(1, -1, np.int64)
     low, high = int(rocks.codes[0]), int(rocks.codes[-1])
     if high - low >= _DENSE_CODE_SPAN:
-        raise ValueError(f"lithology codes span {low}..{high}; renumber them below {_DENSE_CODE_SPAN}")
+        raise KernelInputError(
+            f"rock table codes span {low}..{high}; renumber them to span less than {_DENSE_CODE_SPAN}")
     rows = np.full(high - low + 1, -1, np.int64)
     rows[rocks.codes - low] = np.arange(len(rocks.codes))
     return low, rows

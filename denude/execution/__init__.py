@@ -4,11 +4,14 @@ The CLI imports run entry points from here only, so modules inside ``denude.exec
 can move without touching the commands.
 """
 
-from denude.execution.raster_job import inspect_job, limit_malloc_arenas, resolve_grid, run_map
+from denude.execution.batch import BatchSummary, ZoneSpec, run_batch
+from denude.execution.map_run import MapRunSummary, run_map
+from denude.execution.plan import limit_malloc_arenas, resolve_grid
 from denude.execution.summaries import summarize_outputs
-from denude.execution.batch import ZoneSpec, run_batch
 from denude.execution.tiling import DEFAULT_TILE_SIZE
+from denude.execution.validation import JobReport, inspect_job, validate_job
 from denude.execution.calibration import run_calibration
 
-__all__ = ["DEFAULT_TILE_SIZE", "ZoneSpec", "inspect_job", "limit_malloc_arenas", "resolve_grid",
-           "run_batch", "run_calibration", "run_map", "summarize_outputs"]
+__all__ = ["DEFAULT_TILE_SIZE", "BatchSummary", "JobReport", "MapRunSummary", "ZoneSpec", "inspect_job",
+           "limit_malloc_arenas", "resolve_grid", "run_batch", "run_calibration", "run_map", "summarize_outputs",
+           "validate_job"]

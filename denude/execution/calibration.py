@@ -240,9 +240,10 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
     import rasterio
     from pyproj import CRS
 
-    from denude.execution.summaries import (RATE_TIF, ROCKS_CSV, output_file, sidecar_head, zone_areas_km2,
-                                            zone_partials)
-    from denude.io.grid import Grid
+    from denude.execution.summaries import zone_partials
+    from denude.io.grid import Grid, zone_areas_km2
+    from denude.io.map_folder import RATE_TIF, ROCKS_CSV, output_file
+    from denude.reports.summary_files import sidecar_head
     from denude.io.rasters import file_sha256
     from denude.io.rock_csv import read_rock_table
     from denude.io.samples import read_samples

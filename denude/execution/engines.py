@@ -18,11 +18,7 @@ import multiprocessing
 import os
 import sys
 
-from denude.errors import DenudeError
-
-
-class EngineError(DenudeError):
-    """An execution engine cannot start (bad worker count, unreachable scheduler)."""
+from denude.errors import EngineError  # noqa: F401  (defined in errors.py; re-exported here)
 
 
 def available_cores() -> int:

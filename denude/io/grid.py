@@ -8,7 +8,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+import shapely
 from affine import Affine
+from pyproj import CRS as ProjCRS
 from rasterio.crs import CRS
 from rasterio.errors import CRSError
 from rasterio.windows import Window
@@ -187,3 +190,49 @@ class Grid:
     def describe(self) -> str:
         """One line for the terminal."""
         return f"{self.width} x {self.height} cells, {self.geometry_text()}"
+
+
+# -- cell and polygon areas ------------------------------------------------------------------
+def zone_areas_km2(geometries, grid: Grid) -> np.ndarray:
+    """Whole area of each polygon [km2], inside the map or not, measured like the cells:
+    geodesic on the CRS ellipsoid for a geographic raster CRS, else planar in its CRS units."""
+    crs = ProjCRS.from_user_input(grid.crs.to_wkt())
+    if crs.is_geographic:
+        geod = crs.get_geod()
+        return np.array([abs(geod.geometry_area_perimeter(g)[0]) / 1e6 if g is not None else 0.0
+                         for g in geometries])
+    axes = crs.axis_info
+    factor = axes[0].unit_conversion_factor if axes else 1.0
+    return shapely.area(np.asarray(geometries)) * factor * factor / 1e6
+
+
+def cell_area_method(grid: Grid) -> str:
+    """How ``cell_areas_km2`` measures the cells of ``grid`` (text for the summary sidecar)."""
+    if grid.crs.is_geographic:
+        geod = ProjCRS.from_user_input(grid.crs.to_wkt()).get_geod()
+        return f"geodesic (pyproj.Geod on the {geod.initstring.strip()} ellipsoid, per row)"
+    return "planar (|a*e| of the geotransform)"
+
+
+def cell_areas_km2(grid: Grid) -> tuple[np.ndarray, str]:
+    """Area of one cell of each row [km2] (float64, length ``height``) and the method used:
+    geodesic on the CRS ellipsoid for a geographic CRS, else planar |a*e| (CRS units in m)."""
+    t = grid.affine
+    if grid.crs.is_geographic:
+        geod = ProjCRS.from_user_input(grid.crs.to_wkt()).get_geod()
+        lons = t.c + np.linspace(0.0, t.a, 17)
+        edges = np.clip(t.f + np.arange(grid.height + 1) * t.e, -90.0, 90.0)
+        areas = np.empty(grid.height)
+        for i in range(grid.height):
+            top, bottom = edges[i], edges[i + 1]
+            ring_lon = np.concatenate((lons, lons[::-1]))
+            ring_lat = np.concatenate((np.full(lons.size, top), np.full(lons.size, bottom)))
+            areas[i] = abs(geod.polygon_area_perimeter(ring_lon, ring_lat)[0]) / 1e6
+        return areas, cell_area_method(grid)
+    axes = ProjCRS.from_user_input(grid.crs.to_wkt()).axis_info
+    factor = axes[0].unit_conversion_factor if axes else 1.0
+    if axes and axes[0].unit_name.lower() in ("degree", "radian", "grad"):
+        raise GridError(f"raster CRS axis unit {axes[0].unit_name!r} is not linear; reproject the maps to a metric or geographic CRS")
+    area = abs(t.a * t.e - t.b * t.d) * factor * factor / 1e6
+    return np.full(grid.height, area), cell_area_method(grid)
+

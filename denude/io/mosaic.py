@@ -28,7 +28,6 @@ from __future__ import annotations
 import glob
 import math
 import os
-import uuid
 import warnings
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
@@ -37,7 +36,8 @@ from xml.sax.saxutils import escape, quoteattr
 
 import numpy as np
 
-from denude.errors import GridError, InputError, MosaicOverlapWarning, OutputError
+from denude.errors import GridError, InputError, MosaicOverlapWarning
+from denude.io.outdir import fsync_dir, write_text_atomic  # noqa: F401  (fsync_dir re-exported)
 
 #: Suffixes of tile files picked up from a folder.
 TILE_SUFFIXES = (".tif", ".tiff")
@@ -209,14 +209,14 @@ def vrt_xml(crs_wkt: str, transform: tuple, width: int, height: int, dtype: str,
     lines = [f'<VRTDataset rasterXSize="{int(width)}" rasterYSize="{int(height)}">',
              f"  <SRS>{escape(crs_wkt)}</SRS>",
              f"  <GeoTransform>{geo}</GeoTransform>"]
+    if tags:   # dataset-level, as RasterWriter tags the GeoTIFFs
+        lines.append("  <Metadata>")
+        for key, value in tags:
+            lines.append(f"    <MDI key={quoteattr(str(key))}>{escape(str(value))}</MDI>")
+        lines.append("  </Metadata>")
     lines.append(f'  <VRTRasterBand dataType="{gdal_type}" band="1">')
     if description:
         lines.append(f"    <Description>{escape(description)}</Description>")
-    if tags:
-        lines.append("    <Metadata>")
-        for key, value in tags:
-            lines.append(f"      <MDI key={quoteattr(str(key))}>{escape(str(value))}</MDI>")
-        lines.append("    </Metadata>")
     if nodata is not None:
         lines.append(f"    <NoDataValue>{_fmt_number(nodata, dtype)}</NoDataValue>")
     if colormap:
@@ -357,47 +357,6 @@ def mosaic_vrt_text(paths: list[str], role: str, order: str = "name order") -> s
                                  info.block, info.nodata if masked else None))
     transform = (xres, 0.0, left, 0.0, yres, top)
     return vrt_xml(first.crs_wkt, transform, width, height, first.dtype, nodata, sources)
-
-
-def write_text_atomic(path, text: str) -> bool:
-    """Write ``text`` to ``path`` via a temporary file, fsync and rename; skip (return False)
-    when the file already holds exactly this text."""
-    path = Path(path)
-    data = text.encode("utf-8")
-    try:
-        if path.is_file() and path.read_bytes() == data:
-            return False
-    except OSError:
-        pass
-    tmp = path.with_name(f".{path.name}.partial-{uuid.uuid4().hex[:8]}")
-    try:
-        with open(tmp, "wb") as handle:
-            handle.write(data)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except OSError as exc:
-        try:
-            tmp.unlink()
-        except OSError:
-            pass
-        raise OutputError(f"{path}: cannot write ({exc.strerror or exc}); check the folder is writable") from None
-    fsync_dir(path.parent)
-    return True
-
-
-def fsync_dir(folder) -> None:
-    """Flush a folder's entries (renames) to disk; ignored where unsupported."""
-    try:
-        fd = os.open(str(folder), os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
 
 
 def write_mosaic_vrt(spec: str, role: str, dest) -> str:

@@ -20,6 +20,7 @@ import math
 import os
 import queue
 import threading
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -121,35 +122,56 @@ def open_raster(path, role: str):
         ) from None
 
 
+def check_georeferenced(ds, what: str, fix_crs: str = "assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)",
+                        fix_rotated: str = "warp it north-up first") -> None:
+    """The one rule on an open raster's georeferencing: a CRS and a north-up, unrotated grid.
+    ``what`` names the raster in the message (e.g. 'runoff raster PATH')."""
+    if ds.crs is None:
+        raise GridError(f"{what} has no CRS; {fix_crs}")
+    a, b, _, d, e, _ = tuple(ds.transform)[:6]
+    if b or d or a <= 0 or e >= 0:
+        raise GridError(f"{what} has a rotated or south-up transform; {fix_rotated}")
+
+
+def describe_dataset(ds, path, role: str) -> RasterInfo:
+    """``RasterInfo`` of an open input raster; no CRS or a rotated grid is a GridError."""
+    check_georeferenced(ds, f"{role} raster {path}")
+    if ds.count < 1:
+        raise InputError(f"{role} raster {path} has no bands; give a single-band raster")
+    return RasterInfo(
+        role=role, path=str(path), crs_wkt=ds.crs.to_wkt(), transform=tuple(ds.transform)[:6],
+        width=ds.width, height=ds.height, dtype=ds.dtypes[0],
+        nodata=None if ds.nodata is None else float(ds.nodata),
+        size_bytes=None if is_virtual_path(path) else os.path.getsize(path),
+    )
+
+
 def inspect_raster(path, role: str) -> RasterInfo:
     """Describe an input raster; no CRS or a rotated grid is a GridError."""
     with open_raster(path, role) as ds:
-        if ds.crs is None:
-            raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
-        if ds.count < 1:
-            raise InputError(f"{role} raster {path} has no bands; give a single-band raster")
-        a, b, _, d, e, _ = tuple(ds.transform)[:6]
-        if b or d or a <= 0 or e >= 0:
-            raise GridError(f"{role} raster {path} has a rotated or south-up transform; warp it north-up first")
-        return RasterInfo(
-            role=role, path=str(path), crs_wkt=ds.crs.to_wkt(), transform=tuple(ds.transform)[:6],
-            width=ds.width, height=ds.height, dtype=ds.dtypes[0],
-            nodata=None if ds.nodata is None else float(ds.nodata),
-            size_bytes=None if is_virtual_path(path) else os.path.getsize(path),
-        )
+        return describe_dataset(ds, path, role)
+
+
+@contextmanager
+def _opened(path, role: str, dataset=None):
+    """``dataset`` when the caller holds it open, else the raster opened for this call."""
+    if dataset is not None:
+        yield dataset
+        return
+    with open_raster(path, role) as ds:
+        yield ds
 
 
 #: Points added along each edge when projecting an extent (curved edges in the target CRS).
 DENSIFY_POINTS = 21
 
 
-def footprint_in_crs(path, role: str, crs) -> tuple[float, float, float, float]:
+def footprint_in_crs(path, role: str, crs, dataset=None) -> tuple[float, float, float, float]:
     """A raster's bounds (left, bottom, right, top) transformed into ``crs`` [its units], with
     densified edges. No CRS, an extent that cannot be projected, or one that wraps around the
-    antimeridian in ``crs`` is a one-line GridError."""
-    with open_raster(path, role) as ds:
-        if ds.crs is None:
-            raise GridError(f"{role} raster {path} has no CRS; assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)")
+    antimeridian in ``crs`` is a one-line GridError. ``dataset``: the raster, if already open."""
+    with _opened(path, role, dataset) as ds:
+        check_georeferenced(ds, f"{role} raster {path}")
         src_crs, src_bounds = ds.crs, tuple(ds.bounds)
     if src_crs == crs:
         return src_bounds
@@ -364,10 +386,10 @@ class GridReader:
             self.dataset.close()
 
 
-def value_range(path, role: str, max_side: int = 1024) -> tuple[float, float, int]:
+def value_range(path, role: str, max_side: int = 1024, dataset=None) -> tuple[float, float, int]:
     """(min, max, valid cells) of band 1 from a decimated read (at most max_side per side),
     nodata and NaN excluded; (nan, nan, 0) when nothing is valid."""
-    with open_raster(path, role) as ds:
+    with _opened(path, role, dataset) as ds:
         step = max(1, math.ceil(max(ds.width, ds.height) / max_side))
         shape = (max(1, ds.height // step), max(1, ds.width // step))
         data = ds.read(1, out_shape=shape, masked=True, resampling=Resampling.nearest)
@@ -377,11 +399,12 @@ def value_range(path, role: str, max_side: int = 1024) -> tuple[float, float, in
     return (float(values.min()), float(values.max()), int(values.size))
 
 
-def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 64) -> tuple[float, float, int]:
+def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 64,
+                       dataset=None) -> tuple[float, float, int]:
     """(min, max, valid cells) from a lattice of small windows (a quick look before a run;
     `value_range` reads every tile). Nodata and NaN excluded."""
     lo, hi, n = math.inf, -math.inf, 0
-    with open_raster(path, role) as ds:
+    with _opened(path, role, dataset) as ds:
         for i in range(samples_per_side):
             for j in range(samples_per_side):
                 h, w = min(side, ds.height), min(side, ds.width)
@@ -394,11 +417,11 @@ def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 6
     return (lo, hi, n) if n else (math.nan, math.nan, 0)
 
 
-def unique_codes(path, role: str = "lithology") -> list[int]:
+def unique_codes(path, role: str = "lithology", dataset=None) -> list[int]:
     """Every code in band 1, read block by block (nodata and NaN excluded). Non-integer
     values anywhere in a float raster are an error naming one of them."""
     found: set[int] = set()
-    with open_raster(path, role) as ds:
+    with _opened(path, role, dataset) as ds:
         nodata = ds.nodata
         is_float = not np.issubdtype(np.dtype(ds.dtypes[0]), np.integer)
         for _, window in ds.block_windows(1):

@@ -195,3 +195,10 @@ def write_layers(path, layers: dict) -> None:
             pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", append=False)
         except Exception as exc:
             raise OutputError(f"{path}: cannot write layer {name!r} ({' '.join(str(exc).split())})") from None
+
+
+def vector_files(path: Path) -> list[Path]:
+    """A vector file and its sidecars (shapefile parts)."""
+    if path.suffix.lower() == ".shp":
+        return sorted(p for p in path.parent.glob(path.stem + ".*") if p.is_file())
+    return [path]

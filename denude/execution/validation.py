@@ -1,0 +1,333 @@
+"""The one rule book of a raster job, used by `check`, `map` and `batch`.
+
+``validate_job`` checks a job without writing anything: output folder safe, rock table, target
+grid, every input opens (once) with a CRS and a north-up grid, overlaps the grid, plausible
+values (constants, then a sample or a decimated scan of each raster), every lithology code in
+the rock table. ``check_window`` applies the same value bands and code rule to each window a
+run reads; ``warn_about_counts`` the notes a finished run owes its user.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import warnings
+from contextlib import ExitStack
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from denude.core.dissolution import warn_out_of_range
+from denude.core.rocks import RockTable
+from denude.errors import CoverageWarning, DenudeError, DenudeWarning, GridError, InputError, OutputError
+from denude.execution.plan import JobPlan, gdal_env, load_rocks, raster_roles, resolve_grid
+from denude.io.grid import Grid
+from denude.io.jobfile import MapSettings, is_constant
+from denude.io.mosaic import is_virtual_path
+from denude.io.outdir import check_new_folder
+from denude.io.rasters import (
+    RasterInfo, WarpPlan, choose_layout, describe_dataset, open_raster, overlap_fraction, plan_warp,
+    sample_value_range, unique_codes, value_range,
+)
+from denude.registry import INPUT_ROLES, PCO2_FROM_AET, VALUE_FIELDS
+
+#: A target grid with more than this many times the lithology raster's cells is taken to be a
+#: resolution typo (a 100 m grid given as 0.01) rather than deliberate supersampling.
+MAX_SUPERSAMPLING = 64
+
+#: Share of computed cells with runoff <= 0 above which a finished run warns.
+ZERO_RUNOFF_WARN_SHARE = 0.5
+
+#: A runoff or precipitation field whose largest value is below this (mm/yr) is taken to be
+#: in m/yr: even hyper-arid regions have some cells with more (common practice, no source).
+MIN_PLAUSIBLE_MAX_MM_PER_YR = 5.0
+
+#: Plausible value bands per input: role -> (low, high, fix when outside). Values outside
+#: usually mean wrong units; these are screening limits (common practice, no source).
+PLAUSIBLE = {
+    "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month)"),
+    "precipitation": (0.0, 20000.0, "give precipitation in mm/yr"),
+    "aet": (0.0, 5000.0, "give actual evapotranspiration in mm/yr"),
+    "temperature": (-70.0, 60.0, "give temperature in degrees C (not kelvin or tenths of a degree)"),
+    "elevation": (-500.0, 9000.0, "give elevation in metres above sea level"),
+    "soluble_fraction": (0.0, 1.0, "give the soluble-area fraction as 0-1 (not percent)"),
+    "pco2:atm": (0.0, 1.0, "values above 1 atm look like ppmv: use --pco2-units ppmv"),
+    "pco2:ppmv": (1.0, 1e6, "values below 1 ppmv look like atm: use --pco2-units atm"),
+    "pco2:log10atm": (-6.0, 0.0, "give log10 of PCO2 in atm (e.g. -2), or use --pco2-units atm"),
+}
+
+#: The fix named when runoff has negative cells under the default --negative-runoff error.
+NEGATIVE_RUNOFF_FIX = (
+    "negative runoff usually means wrong units or a water-balance residual: set those cells to nodata, "
+    "or use --negative-runoff zero (job file [run] negative_runoff = \"zero\") to take them as 0 mm/yr"
+)
+
+
+def band_text(low: float, high: float) -> str:
+    """'the plausible range LOW to HIGH' (or 'the plausible limit HIGH' without a lower bound)."""
+    return f"the plausible limit {high:g}" if low == -math.inf else f"the plausible range {low:g} to {high:g}"
+
+
+def implausible(role: str, settings: MapSettings, low_value: float, high_value: float):
+    """(offending value, band low, band high, fix, unit) when [low_value, high_value] leaves the
+    plausible band of ``role`` under these settings, else None. With --negative-runoff zero,
+    runoff has no lower bound (negative cells become 0 mm/yr)."""
+    key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
+    if key not in PLAUSIBLE:
+        return None
+    low, high, fix = PLAUSIBLE[key]
+    if role == "runoff" and settings.negative_runoff == "zero":
+        low = -math.inf
+    if low_value >= low and high_value <= high:
+        return None
+    bad = low_value if low_value < low else high_value
+    if role == "runoff" and bad < 0:
+        fix = NEGATIVE_RUNOFF_FIX
+    unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role].unit)
+    return bad, low, high, fix, unit
+
+
+# ------------------------------------------------------------------------- validation
+@dataclass
+class InputReport:
+    """One input as `denude check` shows it."""
+
+    role: str
+    constant: float | None = None
+    info: RasterInfo | None = None
+    warp: WarpPlan | None = None
+    overlap: float | None = None      # fraction of the target grid covered
+    value_min: float | None = None
+    value_max: float | None = None
+
+
+@dataclass
+class JobReport:
+    """The result of validating a job: grid, inputs, codes; nothing written."""
+
+    settings: MapSettings
+    grid: Grid
+    rocks: RockTable
+    inputs: dict = field(default_factory=dict)     # role -> InputReport
+    codes_found: list = field(default_factory=list)
+    codes_missing: list = field(default_factory=list)
+    layout: str = "cog"
+    notes: list = field(default_factory=list)
+
+
+def check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings,
+                 whole: bool = True) -> None:
+    """Raise a one-line error when values are implausible. ``whole``: the range covers the whole
+    input (a constant or a raster-wide scan), not one window, so unit heuristics apply."""
+    found = implausible(role, settings, low_value, high_value)
+    if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
+        raise InputError(
+            f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
+            f"like m/yr: give {role} in mm/yr (multiply by 1000)"
+        )
+    if found is None:
+        return
+    bad, low, high, fix, unit = found
+    if role == "temperature" and high_value > 200:
+        fix = "values look like kelvin; convert to degrees C (subtract 273.15)"
+    if role == "soluble_fraction" and 1 < high_value <= 100:
+        fix = "values look like percent; divide by 100"
+    if role == "pco2" and settings.pco2_units == "atm" and high_value <= 0 and low_value >= -6:
+        fix = "values look like log10 atm: use --pco2-units log10atm"
+    raise InputError(
+        f"{where}: {role} value {bad:g} is outside {band_text(low, high)} {unit}; {fix}"
+    )
+
+
+def check_outputs(settings: MapSettings, roles: dict[str, str]) -> None:
+    """Refuse an existing output folder (without overwrite) and inputs inside the output folder."""
+    out = check_new_folder(settings.out, settings.overwrite)
+    paths = dict(roles)
+    if settings.rocks:
+        paths["rocks"] = settings.rocks
+    if settings.job_file:
+        paths["job file"] = settings.job_file
+    if settings.grid_like:
+        paths["grid"] = settings.grid_like
+    refuse_inputs_inside(paths, out, "output folder")
+
+
+def refuse_inputs_inside(paths: dict, out: Path, folder: str) -> None:
+    """OutputError when an input path (role -> path; numbers, 'from-aet' and GDAL virtual
+    paths are skipped) lies inside or equals the output folder ``out`` (the ``folder`` named)."""
+    for role, path in paths.items():
+        if not isinstance(path, (str, os.PathLike)) or path == PCO2_FROM_AET or is_virtual_path(path):
+            continue
+        p = Path(path).resolve()
+        if p == out or out in p.parents:
+            raise OutputError(
+                f"{role} input {p} is inside (or equal to) the {folder} {out}; outputs would "
+                "replace it: give another --out"
+            )
+
+
+def inspect_job(settings: MapSettings, for_output: bool = True) -> JobReport:
+    """Validate a job without writing anything: inputs exist and are rasters with a CRS, overlap
+    the target grid, plausible values, every lithology code in the rock table, output path safe.
+    Raises a one-line DenudeError on the first problem; returns the report for `denude check`."""
+    with gdal_env(settings):
+        return validate_job(settings, for_output, scan=True)
+
+
+def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: str | None = None,
+                 tolerant: bool = False) -> JobReport:
+    """The rule book. ``scan``: read every block for codes and refuse inputs without valid
+    cells (`check`); else codes are scanned only for a float lithology (a run checks every
+    window as it goes). ``values``: 'decimated' (a reduced whole read; default with ``scan``)
+    or 'sample' (a lattice of small windows; default otherwise). ``tolerant``: unreadable
+    pixels are left to the windows that touch them (a batch reports them per tile).
+    Each input is opened once."""
+    values = values or ("decimated" if scan else "sample")
+    rocks = load_rocks(settings)
+    roles = raster_roles(settings)
+    if for_output:
+        check_outputs(settings, roles)
+    with ExitStack() as stack:
+        lithology = stack.enter_context(open_raster(settings.lithology, "lithology"))
+        grid = resolve_grid(settings, lithology)
+        report = JobReport(settings, grid, rocks, layout=choose_layout(settings.layout, grid))
+        if settings.grid_crs is not None and settings.grid_bounds is None:
+            l, b, r, t = grid.bounds
+            report.notes.append(
+                f"target grid bounds ({l:.12g}, {b:.12g}, {r:.12g}, {t:.12g}): the lithology raster's extent in "
+                f"{grid.crs_label()}, snapped outward to whole {grid.res[0]:.12g} x {grid.res[1]:.12g} cells")
+        _check_constants(report)
+        for role, path in roles.items():
+            ds = lithology if role == "lithology" else stack.enter_context(open_raster(path, role))
+            report.inputs[role] = _check_raster(report, role, path, ds, values, scan, tolerant)
+        _check_codes(report, lithology, scan, tolerant)
+    return report
+
+
+#: The name the pre-split module used; kept for callers of the old name.
+def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobReport:
+    return validate_job(settings, for_output, scan)
+
+
+def _check_constants(report: JobReport) -> None:
+    """Constants (cheap, checked first) and the notes on unit conversions."""
+    settings = report.settings
+    for role in VALUE_FIELDS:
+        value = getattr(settings, role)
+        if is_constant(value):
+            check_range(role, f"--{role.replace('_', '-')} {value:g}", value, value, settings)
+            report.inputs[role] = InputReport(role, constant=value)
+    if settings.air_pressure_atm is not None:
+        report.notes.append(f"air pressure {settings.air_pressure_atm:g} atm for ppmv -> atm")
+    elif settings.pco2_units == "ppmv" and settings.elevation is None:
+        report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
+    if settings.pco2_from_aet:
+        report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
+    if is_constant(settings.runoff) and settings.runoff < 0:
+        report.notes.append(f"runoff {settings.runoff:g} mm/yr is negative: taken as 0 mm/yr (--negative-runoff zero)")
+    if settings.pco2_units != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
+        warnings.warn(DenudeWarning(
+            f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings.pco2_units}"),
+            stacklevel=4)
+
+
+def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan: bool,
+                  tolerant: bool) -> InputReport:
+    """One raster input, open as ``ds``: georeferencing, warp plan, coverage, value bands."""
+    settings, grid = report.settings, report.grid
+    categorical = INPUT_ROLES[role].categorical
+    info = describe_dataset(ds, path, role)
+    requested = settings.lithology_resampling if categorical else settings.continuous_resampling
+    item = InputReport(role, info=info, warp=plan_warp(info, grid, categorical, requested))
+    item.overlap = overlap_fraction(info, grid)
+    if role == "lithology" and grid.width * grid.height > MAX_SUPERSAMPLING * info.width * info.height:
+        raise GridError(
+            f"target grid {grid.width} x {grid.height} cells has over {MAX_SUPERSAMPLING}x the cells of "
+            f"the lithology raster {path} ({info.width} x {info.height}); check the target resolution "
+            "(in CRS units: metres, or degrees for a geographic CRS)"
+        )
+    if item.overlap is not None and item.overlap < 0.999:
+        warnings.warn(CoverageWarning(
+            f"{role} raster {path} covers {100 * item.overlap:.1f} % of the target grid; cells outside "
+            "it will be nodata"), stacklevel=4)
+    if categorical:
+        return item
+    reader = value_range if values == "decimated" else sample_value_range
+    try:
+        lo, hi, n = reader(path, role, dataset=ds)
+    except DenudeError:
+        raise
+    except Exception:
+        if not tolerant:
+            raise
+        return item          # unreadable parts: the windows (tiles) touching them report it
+    if n == 0 and scan:
+        raise InputError(f"{role} raster {path} has no valid cells (all nodata); check its nodata value")
+    if n:
+        item.value_min, item.value_max = lo, hi
+        check_range(role, f"{role} raster {path}", lo, hi, settings)
+        if role == "runoff" and lo < 0:
+            report.notes.append(f"runoff raster {path} has negative values (down to {lo:g} mm/yr); "
+                                "they will be taken as 0 mm/yr (--negative-runoff zero)")
+    return item
+
+
+def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool) -> None:
+    """Every lithology code in the rock table (`check`), and integer codes in a float raster
+    (always: a non-integer code must be an error, never truncated into another rock type)."""
+    settings, rocks = report.settings, report.rocks
+    lithology_is_float = not np.issubdtype(np.dtype(report.inputs["lithology"].info.dtype), np.integer)
+    if not scan and not lithology_is_float:
+        return
+    try:
+        codes = unique_codes(settings.lithology, dataset=lithology)
+    except DenudeError:
+        raise
+    except Exception:
+        if not tolerant:
+            raise
+        return
+    report.codes_found = codes
+    report.codes_missing = rocks.missing_codes(codes)
+    if not codes:
+        raise InputError(f"lithology raster {settings.lithology} has no valid cells (all nodata); check its nodata value")
+    if report.codes_missing and (scan or not tolerant):
+        raise missing_codes_error(settings.lithology, report.codes_missing, rocks)
+
+
+def warn_about_counts(counts: dict) -> None:
+    """One-line warnings a finished run owes its user: cells out of the constants' range, and a
+    map that is mostly zero because runoff is <= 0 (P < AET, or swapped inputs)."""
+    warn_out_of_range(counts.get("out_of_range", 0))
+    negative = counts.get("negative_runoff", 0)
+    if negative:
+        warnings.warn(DenudeWarning(
+            f"{negative} map cells had negative runoff and were taken as 0 mm/yr (no dissolution; "
+            "--negative-runoff zero); check the runoff input if that many is unexpected"), stacklevel=2)
+    computed, zero = counts.get("computed", 0), counts.get("zero_runoff", 0)
+    if computed and zero >= ZERO_RUNOFF_WARN_SHARE * computed:
+        warnings.warn(DenudeWarning(
+            f"{zero} of {computed} computed cells ({100 * zero / computed:.0f} %) have runoff <= 0 and a "
+            "rate of 0; check the runoff (or precipitation and AET) inputs and their units"), stacklevel=2)
+
+
+def missing_codes_error(path, codes, rocks: RockTable, where: str = "") -> InputError:
+    """The one message for lithology codes missing from the rock table."""
+    shown = ", ".join(str(c) for c in list(codes)[:10])
+    return InputError(
+        f"{where}lithology raster {path} has code(s) {shown} not in the rock table "
+        f"({rocks.source}); add rows for them to the --rocks CSV or set them to nodata"
+    )
+
+
+def check_window(settings: MapSettings, plan: JobPlan, result, where: str = "") -> None:
+    """The checks a run makes on every window (a ``WindowResult``) as it goes: plausible input
+    values (the same bands as `denude check`) and lithology codes covered by the rock table.
+    ``where``: a prefix naming the part of the job (e.g. 'tile r000_c001: ')."""
+    if result.unknown_codes:
+        raise missing_codes_error(plan.warps["lithology"].info.path, result.unknown_codes, plan.rocks, where)
+    for role, (lo, hi) in result.value_ranges.items():
+        check_range(role, f"{where}{role} raster {plan.warps[role].info.path}", lo, hi, settings, whole=False)
+
+
