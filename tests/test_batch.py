@@ -138,7 +138,7 @@ def test_one_worker_n_workers_and_cluster_give_identical_files(region, tmp_path,
         outs[name] = tree_bytes(out)
     assert "Dask" in summary.engine
     reference = outs["inline"]
-    assert len(reference) == 6 * 7 + 6
+    assert len(reference) == 6 * 9 + 6     # 6 tiles x (6 layers, 2 category sidecars, done mark) + 6 top-level files
     for name, files in outs.items():
         assert files == reference, name
 

@@ -22,6 +22,7 @@ def summarize(
     points: Annotated[Optional[Path], typer.Option(help="Sinkhole points: sampled and counted per zone (layer sinkholes).", exists=True, dir_okay=False)] = None,
     points_layer: Annotated[Optional[str], typer.Option(help="Layer of the sinkhole file.")] = None,
     workers: Annotated[Optional[int], typer.Option(min=1, help="Processes (default: 1 for small grids or fewer than 4 CPUs, else half the CPUs, at most 4).")] = None,
+    highest_class_min_share: Annotated[float, typer.Option(min=0.0, max=1.0, help="Share of a zone (0-1) a hazard class must cover to be its hazard_highest_name.")] = 0.01,
     overwrite: Annotated[bool, typer.Option(help="Replace existing outputs.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar and no summary lines.")] = False,
 ):
@@ -33,6 +34,7 @@ def summarize(
             outdir, zones, layer=layer, id_field=id_field, units_path=units, units_layer=units_layer,
             units_id_field=units_id_field, points_path=points, points_layer=points_layer,
             out_path=out, overwrite=overwrite, progress=progress, workers=workers,
+            highest_class_min_share=highest_class_min_share,
         )
     if not quiet:
         layers = ", ".join(f"{name} ({count})" for name, count in meta["outputs"]["layers"].items())

@@ -422,6 +422,7 @@ def _gdal_env(settings: MapSettings) -> dict:
 def _layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: MapSettings, layers) -> list[str]:
     """One VRT per layer over the finished tiles (relative paths, integer offsets)."""
     from denude.execution.raster_job import output_spec
+    from denude.io.styles import write_category_names
 
     written = []
     for name in layers:
@@ -429,13 +430,15 @@ def _layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: M
         spec = output_spec(name, settings)
         sources = [
             VrtSource(f"{TILES_DIR}/{t.id}/{info.file}", True, t.width, t.height, t.col_off, t.row_off,
-                      info.dtype, (min(settings.block_size, t.width), min(settings.block_size, t.height)))
+                      spec.dtype, (min(settings.block_size, t.width), min(settings.block_size, t.height)))
             for t in tiles if t.id in done
         ]
         vrt_name = Path(info.file).with_suffix(".vrt").name
-        write_vrt(out / vrt_name, grid.crs_wkt, grid.transform, grid.width, grid.height, info.dtype,
-                  info.nodata, sources, spec.description, spec.tags, spec.colormap)
+        write_vrt(out / vrt_name, grid.crs_wkt, grid.transform, grid.width, grid.height, spec.dtype,
+                  spec.nodata, sources, spec.description, spec.tags, spec.colormap)
         written.append(vrt_name)
+        if write_category_names(out / vrt_name, list(spec.categories)):   # GDAL reads <vrt>.aux.xml too
+            written.append(vrt_name + ".aux.xml")
     return written
 
 

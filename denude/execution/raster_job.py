@@ -64,6 +64,7 @@ from denude.io.rasters import (
     value_range,
 )
 from denude.io.rock_csv import read_rock_table, write_rock_table
+from denude.io.layer_meta import layer_extras, write_map_styles
 
 SOURCES = (
     "White (1984) maximum denudation; Plummer & Busenberg (1982) equilibrium constants; "
@@ -149,10 +150,13 @@ def output_spec(layer: str, settings: MapSettings) -> OutputSpec:
             tags[f"class_{i}"] = name
         colormap = tuple(DEFAULT_COLOURS[i] if i < len(DEFAULT_COLOURS) else (128, 128, 128, 255)
                          for i in range(len(names)))
+    extras = layer_extras(layer, settings, load_rocks(settings) if layer == "lithology" else None)
+    tags["sources"] = extras.pop("sources")
+    fields = dict(name=info.file, dtype=info.dtype, nodata=info.nodata, colormap=colormap)
+    fields.update(extras)
     return OutputSpec(
-        name=info.file, dtype=info.dtype, nodata=info.nodata,
         overview_resampling=info.overview_resampling, tags=tuple(tags.items()),
-        description=f"{info.quantity} [{info.units}]", colormap=colormap,
+        description=f"{info.quantity} [{info.units}]", **fields,
     )
 
 
@@ -736,6 +740,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
         outputs = [writers[name].close().name for name in layers]
         write_rock_table(report.rocks, staging / "rocks.csv")
         outputs.append("rocks.csv")
+        outputs += write_map_styles(staging, settings, report.rocks, layers)
         hasher.join()
         wall = time.perf_counter() - started
         record = {

@@ -39,7 +39,7 @@ import shapely
 
 from denude import __version__
 from denude.cautions import CAUTION, UPPER_BOUND_NOTE
-from denude.core.hazard import DEFAULT_CLASS_NAMES, HAZARD_NODATA
+from denude.core.hazard import DEFAULT_CLASS_NAMES, HAZARD_NODATA, HIGHEST_CLASS_MIN_SHARE
 from denude.core.zonal import PERCENTILE_RELATIVE_RESOLUTION, ZonalAccumulator
 from denude.io.grid import Grid
 from denude.io.rasters import file_sha256
@@ -73,7 +73,10 @@ COLUMN_UNITS = {
     "denudation_p90_mm_per_kyr": "mm/kyr", "rock_volume_m3_per_yr": "m3/yr",
     "rock_mass_t_per_yr": "t/yr", "co2_drawdown_t_per_yr": "t/yr",
     "hazard_area_km2_*": "km2", "hazard_share_*": "1", "hazard_max_class": "class index (-1 none)",
-    "hazard_max_name": "class name",
+    "hazard_max_name": "class name (deprecated: any single cell; use hazard_highest_name)",
+    "hazard_dominant_class": "class index (-1 none)", "hazard_dominant_name": "class name (largest area)",
+    "hazard_highest_class": "class index (-1 none)",
+    "hazard_highest_name": "class name (highest class covering at least the minimum share of area_km2)",
     "dominant_rock": "rock name", "dominant_rock_share": "1", "sinkhole_count": "points",
     "sinkhole_density_per_km2": "1/km2", "sinkhole_mean_rate_mm_per_kyr": "mm/kyr",
     "sinkhole_rate_ratio": "1", "denudation_mm_per_kyr": "mm/kyr",
@@ -396,6 +399,7 @@ def summarize_outputs(
     overwrite: bool = False,
     progress: Optional[Callable[[int, int], None]] = None,
     workers: Optional[int] = None,
+    highest_class_min_share: float = HIGHEST_CLASS_MIN_SHARE,
 ) -> dict:
     """Summarise a ``denude map`` output folder over zones, optional planning units and
     sinkhole points, and write ``out_path`` (GeoPackage), CSV twins and a
@@ -484,7 +488,8 @@ def summarize_outputs(
                 tree = shapely.STRtree(zs.layer.geometry)
                 pidx, zidx = tree.query(points.geometry, predicate="intersects")
                 zs.acc.add_points(zidx, point_values["rate"][pidx])
-            cols = zs.acc.finalize(class_names, rock_names, with_points=points is not None)
+            cols = zs.acc.finalize(class_names, rock_names, with_points=points is not None,
+                                   highest_min_share=highest_class_min_share)
             if zs.name == ZONES_LAYER:  # shares are asked for planning units only
                 cols = {k: v for k, v in cols.items() if not k.startswith("hazard_share_")}
             whole = zone_areas_km2(zs.layer.geometry, grid)
@@ -500,7 +505,7 @@ def summarize_outputs(
             **sidecar_head("denude summarize"),
             "map_folder": str(outdir.resolve()),
             "outputs": sidecar_outputs(out_path, tables, layer_names, csv_paths),
-            "method": summary_method(area_method, class_names),
+            "method": {**summary_method(area_method, class_names), "highest_class_min_share": highest_class_min_share},
             "zones": layer_provenance(zones_path, zones),
             "raster_crs": grid.crs.to_string(),
             "units": COLUMN_UNITS,
@@ -705,6 +710,9 @@ def summary_method(area_method: str, class_names) -> dict:
         "rock_mass": "rock volume x bulk density of the cell's rock type (rocks.csv, g/cm3 = t/m3)",
         "sinkholes": "rate, hazard class and rock of the cell holding each point; a point counts in every zone it intersects",
         "hazard_classes": class_names,
+        "hazard_labels": ("hazard_dominant_name: the class of largest area; hazard_highest_name: the highest "
+                          "class covering at least highest_class_min_share of area_km2; hazard_max_name "
+                          "(any single cell) is deprecated and will be removed in the next release"),
     }
 
 
@@ -721,7 +729,10 @@ def zone_table(layer, cols, class_names, area_method, method_column: bool = True
     is False), geometry (file's CRS)."""
     import geopandas
 
+    from denude.io.vectors import user_attributes
+
     data = {layer.id_field: layer.frame[layer.id_field].to_numpy()}
+    data.update(user_attributes(layer.frame, skip=(layer.id_field,), taken=list(cols) + ["cell_area_method"]))
     data.update(cols)
     if method_column:
         data["cell_area_method"] = np.full(len(layer), "geodesic" if area_method.startswith("geodesic") else "planar", dtype=object)
@@ -731,10 +742,10 @@ def zone_table(layer, cols, class_names, area_method, method_column: bool = True
 def _point_table(points, values, class_names, rock_names):
     import geopandas
 
+    from denude.io.vectors import user_attributes
+
     frame = points.frame
-    keep = [c for c in frame.columns if c != frame.geometry.name and c not in
-            ("denudation_mm_per_kyr", "hazard_class", "hazard_name", "rock")]
-    data = {c: frame[c].to_numpy() for c in keep}
+    data = user_attributes(frame, taken=("denudation_mm_per_kyr", "hazard_class", "hazard_name", "rock"))
     hz = values["hazard"]
     data["denudation_mm_per_kyr"] = values["rate"]
     data["hazard_class"] = hz.astype(np.int64)
@@ -755,6 +766,7 @@ def write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta)
     try:
         written.append(tmp_gpkg)
         write_layers(tmp_gpkg, {layer_names.get(k, k): v for k, v in tables.items()})
+        _style_hook(tmp_gpkg, tables, layer_names, meta)
         moves = [(tmp_gpkg, out_path)]
         for key, path in csv_paths.items():
             tmp = path.with_name("." + path.name + tag)
@@ -783,3 +795,14 @@ def write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta)
             except FileNotFoundError:
                 pass
         raise
+
+
+def _style_hook(gpkg, tables, layer_names, meta) -> None:
+    """Layer descriptions and default styles (``layer_styles``) of a summary GeoPackage."""
+    from denude.io.styles import map_class_scheme, style_summary
+
+    kinds = {ZONES_LAYER: "zones", UNITS_LAYER: "planning_units", POINTS_LAYER: "sinkholes"}
+    scheme = map_class_scheme(meta["map_folder"]) if meta.get("map_folder") else None
+    breaks, names = scheme if scheme else (None, meta.get("method", {}).get("hazard_classes"))
+    style_summary(gpkg, {layer_names.get(k, k): kinds.get(k, "zones") for k in tables},
+                  {layer_names.get(k, k): v for k, v in tables.items()}, breaks, names)

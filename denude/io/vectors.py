@@ -195,3 +195,23 @@ def write_layers(path, layers: dict) -> None:
             pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", append=False)
         except Exception as exc:
             raise OutputError(f"{path}: cannot write layer {name!r} ({' '.join(str(exc).split())})") from None
+
+
+#: Prefix given to a user's attribute whose name clashes with a summary column.
+CLASH_PREFIX = "user_"
+
+
+def user_attributes(frame, skip=(), taken=()) -> dict:
+    """The attribute columns of a user's layer (not its geometry nor the ``skip`` columns),
+    as name -> array; a name in ``taken`` (the summary's own columns) gets ``CLASH_PREFIX``
+    (again, until free)."""
+    out = {}
+    used = set(taken) | set(skip)
+    for column in frame.columns:
+        if column == frame.geometry.name or column in skip:
+            continue
+        name = str(column)
+        while name in used or name in out:
+            name = CLASH_PREFIX + name
+        out[name] = frame[column].to_numpy()
+    return out
