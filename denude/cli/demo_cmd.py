@@ -76,6 +76,9 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
     summarize_outputs(out, watersheds, layer="subwatersheds", id_field="watershed_id",
                       out_path=nested, overwrite=overwrite)
     lines.append(f"nested sub-watersheds: {nested}")
+    from denude.reports.html_report import build_report
+
+    lines.append(f"report: {build_report(out, out / 'report.html', summary=table).html}")
     return lines
 
 

@@ -67,6 +67,7 @@ COMMAND_MODULES = (
     "denude.cli.summarize_cmd",
     "denude.cli.batch_cmd",
     "denude.cli.demo_cmd",
+    "denude.cli.report_cmd",
 )
 
 def _version(value: bool) -> None:
