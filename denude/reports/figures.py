@@ -161,11 +161,15 @@ def rate_map(path) -> Figure:
     image = ax.imshow(shown, extent=extent, cmap="viridis", norm=norm, interpolation="nearest")
     bar = fig.colorbar(image, ax=ax, shrink=0.8)
     bar.set_label("maximum denudation rate [mm/kyr]" + (" (log scale)" if kind == "log" else ""))
+    if kind == "log":
+        ticks = [v * 10 ** e for e in range(-2, 6) for v in (1, 2, 5) if low <= v * 10 ** e <= high]
+        bar.set_ticks(ticks, labels=[f"{t:g}" for t in ticks])
+        bar.ax.minorticks_off()
     decorate(ax, extent, crs, "Maximum denudation rate")
     ax.text(1.0, -0.02, "grey: 0 mm/kyr (insoluble rock)", transform=ax.transAxes, fontsize=7, ha="right", va="top")
     return _png(fig, "rate_map", "Maximum denudation rate (mm/kyr)",
                 "Cell-mean maximum chemical denudation rate, 1 mm/kyr = 1 m3 of rock per km2 per year. "
-                + ("Log colour scale: the rates span more than two orders of magnitude." if kind == "log" else ""))
+                + ("Log colour scale: the rates span more than a factor of ten." if kind == "log" else ""))
 
 
 def _single(colour):
