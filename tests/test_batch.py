@@ -385,7 +385,8 @@ def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
     first = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert first.exit_code == 0, first.output
     assert "6 tiles, 6 computed, 0 already done, 0 failed (in this process (1 worker))" in first.output
-    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "rocks.csv", "run.json", "tiles", ".batch.lock"])
+    categories = ["hazard_class.vrt.aux.xml", "lithology_code.vrt.aux.xml"]    # GDAL category names of the mosaics
+    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + categories + ["manifest.json", "rocks.csv", "run.json", "tiles", ".batch.lock"])
     again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
 
