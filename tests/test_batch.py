@@ -138,7 +138,7 @@ def test_one_worker_n_workers_and_cluster_give_identical_files(region, tmp_path,
         outs[name] = tree_bytes(out)
     assert "Dask" in summary.engine
     reference = outs["inline"]
-    assert len(reference) == 6 * 7 + 6
+    assert len(reference) == 6 * 9 + 6     # 6 tiles x (6 layers, 2 category sidecars, done mark) + 6 top-level files
     for name, files in outs.items():
         assert files == reference, name
 
@@ -385,7 +385,8 @@ def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
     first = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert first.exit_code == 0, first.output
     assert "6 tiles, 6 computed, 0 already done, 0 failed (in this process (1 worker))" in first.output
-    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + ["manifest.json", "rocks.csv", "run.json", "tiles"])
+    categories = ["hazard_class.vrt.aux.xml", "lithology_code.vrt.aux.xml"]    # GDAL category names of the mosaics
+    assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + categories + ["manifest.json", "rocks.csv", "run.json", "tiles"])
     again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
 

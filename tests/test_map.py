@@ -64,7 +64,8 @@ def test_every_cell_equals_compute_block(map_inputs, tmp_path):
     assert_same(read(out, "co2_drawdown_t_per_km2_yr.tif"), exp.co2_drawdown_t_per_km2_yr)
     assert_same(read(out, "hazard_class.tif"), classify(exp.denudation_mm_per_kyr, DEFAULT_BREAKS_MM_PER_KYR))
     codes = map_inputs["codes"]
-    assert_same(read(out, "lithology_code.tif"), np.where(codes == -1, INT32_NODATA, codes.astype(np.int32)))
+    # codes 0-5 of the built-in table fit uint8, with 255 kept free for nodata
+    assert_same(read(out, "lithology_code.tif"), np.where(codes == -1, 255, codes).astype(np.uint8))
     fraction = read(out, "soluble_area_fraction.tif")
     assert np.isnan(fraction[codes == -1]).all()
     assert (fraction[codes == 0] == 0).all() and (fraction[codes > 0] == 1).all()  # code 0 insoluble
@@ -131,7 +132,7 @@ def test_output_rasters_describe_themselves(map_inputs, tmp_path):
             "dissolved_load_mmol_per_l.tif": ("float32", "mmol/L"),
             "co2_drawdown_t_per_km2_yr.tif": ("float32", "t CO2 km-2 yr-1"),
             "hazard_class.tif": ("uint8", "class index"),
-            "lithology_code.tif": ("int32", "code"),
+            "lithology_code.tif": ("uint8", "code"),
             "soluble_area_fraction.tif": ("float32", "fraction 0-1"),
         }
         for name, (dtype, units) in expected_types.items():
@@ -144,7 +145,11 @@ def test_output_rasters_describe_themselves(map_inputs, tmp_path):
                 assert tags["units"] == units and tags["chemistry"] == "white"
                 assert "not a site investigation" in tags["caution"] and "licensed" in tags["caution"]
                 assert "undersaturated" in tags["upper_bound_note"]
-                assert tags["quantity"] and tags["formula"] and "White (1984)" in tags["sources"]
+                assert tags["quantity"] and tags["formula"]
+                # sources cite only what the layer used: no chemistry papers on carried inputs
+                assert ("White (1984)" in tags["sources"]) == (name not in ("lithology_code.tif", "soluble_area_fraction.tif"))
+                assert "Brook" not in tags["sources"]            # PCO2 was a raster, not from AET
+                assert ds.units == (units,) and ds.descriptions[0].endswith(f"[{units}]")
                 assert ds.overviews(1) == [2, 4]              # 56 x 40 cells, 16-cell tiles
                 assert ds.block_shapes[0] == (16, 16)
                 structure = ds.tags(ns="IMAGE_STRUCTURE")
@@ -174,8 +179,10 @@ def test_run_json_records_the_run(map_inputs, tmp_path):
     counts = record["counts"]
     assert counts["cells"] == 2240 and counts["computed"] + counts["nodata"] + counts["unknown_code"] + counts["out_of_range"] == 2240
     assert record["wall_time_s"] >= 0
-    assert set(record["outputs"]) == set(FILES) | {"rocks.csv", "run.json"}
-    assert sorted(p.name for p in out.iterdir()) == sorted(FILES + ["rocks.csv", "run.json"])
+    styles = ["denudation_mm_per_kyr.sld", "hazard_class.sld", "lithology_code.sld",
+              "hazard_class.tif.aux.xml", "lithology_code.tif.aux.xml"]   # SLD styles, category names
+    assert set(record["outputs"]) == set(FILES) | {"rocks.csv", "run.json"} | set(styles)
+    assert sorted(p.name for p in out.iterdir()) == sorted(FILES + ["rocks.csv", "run.json"] + styles)
     assert not list(tmp_path.glob(".out.denude-*"))     # no staging folder left
 
 
@@ -221,7 +228,8 @@ def test_pco2_ppmv_with_elevation_and_soluble_fraction(map_inputs, make_raster, 
 def test_rate_only_layer(map_inputs, tmp_path):
     out = tmp_path / "out"
     run_map(settings_for(map_inputs, out, layers="denudation"))
-    assert sorted(p.name for p in out.iterdir()) == ["denudation_mm_per_kyr.tif", "rocks.csv", "run.json"]
+    assert sorted(p.name for p in out.iterdir()) == ["denudation_mm_per_kyr.sld", "denudation_mm_per_kyr.tif",
+                                                     "rocks.csv", "run.json"]
 
 
 def _window_bytes(args):
@@ -280,7 +288,7 @@ def test_explicit_and_like_grids_resample_by_kind(map_inputs, make_raster, tmp_p
     assert record["inputs"]["lithology"]["resampling"] == "mode"
     assert record["inputs"]["runoff"]["resampling"] == "average"
     codes = read(out, "lithology_code.tif")
-    assert set(np.unique(codes).tolist()) <= {0, 1, 2, 3, 4, 5, INT32_NODATA}
+    assert set(np.unique(codes).tolist()) <= {0, 1, 2, 3, 4, 5, 255}
     # the same grid given as a raster
     like = make_raster("like.tif", np.zeros((13, 18), np.uint8), res=300.0)
     out2 = tmp_path / "like"

@@ -309,7 +309,8 @@ def test_sinkholes_and_planning_units(tmp_path, smooth, monkeypatch, workers):
         table, out = run(tmp_path, outdir, zones, units_path=units, units_id_field="parcel",
                          points_path=tmp_path / "p.gpkg", workers=workers)
     layers = dict(pyogrio.list_layers(out))
-    assert layers == {"zones": "Polygon", "planning_units": "Polygon", "sinkholes": "Point"}
+    # layer_styles: the default styles a desktop GIS applies on open (an attribute table)
+    assert layers == {"zones": "Polygon", "planning_units": "Polygon", "sinkholes": "Point", "layer_styles": None}
     points = gpd.read_file(out, layer="sinkholes").set_index("name")
     # hand-derived: the cell holding each point
     assert points.loc["s1", "denudation_mm_per_kyr"] == pytest.approx(rate[3, 2], rel=1e-6)

@@ -84,6 +84,10 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
     calibration = run_calibration(out, data / "water_samples.csv", watersheds, out / "calibration",
                                   layer="watersheds", id_field="watershed_id", overwrite=overwrite)
     lines.append(f"calibration against {calibration['samples']['rows']} invented water samples: {out / 'calibration'}")
+
+    from denude.reports.html_report import build_report
+
+    lines.append(f"report: {build_report(out, out / 'report.html', summary=table).html}")
     return lines
 
 

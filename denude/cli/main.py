@@ -72,6 +72,7 @@ COMMAND_MODULES = (
     "denude.cli.batch_cmd",
     "denude.cli.demo_cmd",
     "denude.cli.calibrate_cmd",
+    "denude.cli.report_cmd",
 )
 
 def _version(value: bool) -> None:

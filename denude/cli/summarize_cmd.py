@@ -28,6 +28,7 @@ def summarize(
     workers: Annotated[Optional[int], typer.Option(
         "--workers", metavar="N", min=1,
         help="Parallel workers (default: from the grid size and the cores available; 1 on small grids).")] = None,
+    highest_class_min_share: Annotated[float, typer.Option(min=0.0, max=1.0, help="Share of a zone (0-1) a hazard class must cover to be its hazard_highest_name.")] = 0.01,
     overwrite: Annotated[bool, typer.Option(help="Replace existing outputs.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar and no summary lines.")] = False,
     as_json: o.AsJson = False,
@@ -39,6 +40,7 @@ def summarize(
             units_id_field=units_id_field, points_path=points, points_layer=points_layer,
             out_path=out, overwrite=overwrite, progress=progress, workers=workers,
             breaks_from_record=breaks_from_record,
+            highest_class_min_share=highest_class_min_share,
         )
     if as_json:
         return summarize_record(meta, out)

@@ -51,3 +51,28 @@ def classify(rate_mm_per_kyr, breaks_mm_per_kyr=DEFAULT_BREAKS_MM_PER_KYR):
     rate = np.asarray(rate_mm_per_kyr, dtype=np.float64)
     classes = np.searchsorted(breaks, rate, side="right").astype(np.uint8)
     return np.where(np.isnan(rate), np.uint8(HAZARD_NODATA), classes).astype(np.uint8)
+
+
+#: Default share of a zone [0-1] a class must cover to be its ``highest`` class.
+HIGHEST_CLASS_MIN_SHARE = 0.01
+
+
+def dominant_and_highest(class_area_km2, zone_area_km2, min_share=HIGHEST_CLASS_MIN_SHARE):
+    """Per zone, the class covering the largest area and the highest class covering at
+    least ``min_share`` (0-1) of the zone's area; -1 where no class qualifies.
+
+    class_area_km2 : (zones, classes) array [km2]; zone_area_km2 : (zones,) array [km2].
+    Ties in area go to the higher class (the cautious reading). Returns two int64 arrays."""
+    if not 0.0 <= float(min_share) <= 1.0:
+        raise InputError(f"highest-class minimum share {min_share} is outside 0-1; give a fraction such as 0.01")
+    area = np.asarray(class_area_km2, dtype=np.float64)
+    zone = np.asarray(zone_area_km2, dtype=np.float64)
+    n = area.shape[1]
+    present = area > 0
+    top_area = n - 1 - np.argmax(area[:, ::-1], axis=1)
+    dominant = np.where(present.any(axis=1), top_area, -1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(zone[:, None] > 0, area / np.where(zone[:, None] > 0, zone[:, None], 1.0), 0.0)
+    enough = present & (share >= float(min_share))
+    highest = np.where(enough.any(axis=1), n - 1 - np.argmax(enough[:, ::-1], axis=1), -1)
+    return dominant.astype(np.int64), highest.astype(np.int64)

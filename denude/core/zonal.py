@@ -31,6 +31,8 @@ import math
 import numba
 import numpy as np
 
+from denude.core.hazard import HIGHEST_CLASS_MIN_SHARE, dominant_and_highest
+
 #: Lower edge of the log-spaced bins [mm/kyr]; below it (but > 0) is one bin.
 RATE_BIN_LOW_MM_PER_KYR = 0.01
 #: Upper edge of the log-spaced bins [mm/kyr]; at or above it is one overflow bin.
@@ -492,10 +494,14 @@ class ZonalAccumulator:
             out[zones, j] = lo + t * (hi - lo)
         return out
 
-    def finalize(self, class_names=None, rock_names=None, with_points=None) -> dict[str, np.ndarray]:
+    def finalize(self, class_names=None, rock_names=None, with_points=None,
+                 highest_min_share=HIGHEST_CLASS_MIN_SHARE) -> dict[str, np.ndarray]:
         """Columns per zone (name -> array), units in the names. ``class_names`` label the
         hazard columns, ``rock_names`` the rock rows (for ``dominant_rock``); sinkhole columns
-        appear if ``with_points`` (default: if any point was added)."""
+        appear if ``with_points`` (default: if any point was added). ``hazard_dominant_*`` is
+        the class of largest area, ``hazard_highest_*`` the highest class covering at least
+        ``highest_min_share`` (0-1) of ``area_km2``; ``hazard_max_*`` (any single cell) is
+        deprecated and kept one release."""
         with np.errstate(invalid="ignore", divide="ignore"):
             has = self.valid_area_km2 > 0
             mean = np.where(has, self.sum_w_rate / np.where(has, self.valid_area_km2, 1), np.nan)
@@ -536,6 +542,10 @@ class ZonalAccumulator:
                 cols["hazard_max_name"] = np.array(
                     [labels[k] if k >= 0 else "" for k in cols["hazard_max_class"]], dtype=object
                 )
+                dominant, highest = dominant_and_highest(self.class_area_km2, area, highest_min_share)
+                for key, value in (("dominant", dominant), ("highest", highest)):
+                    cols[f"hazard_{key}_class"] = value
+                    cols[f"hazard_{key}_name"] = np.array([labels[k] if k >= 0 else "" for k in value], dtype=object)
             if self.n_rocks:
                 labels = list(rock_names or [str(k) for k in range(self.n_rocks)])
                 best = np.argmax(self.rock_area_km2, axis=1)

@@ -27,6 +27,7 @@ from denude.io.mosaic import VrtSource, write_vrt
 from denude.io.outdir import fsync_dir, fsync_file, make_staging_dir, remove_path, staged_files
 from denude.io.rasters import RasterWriter, file_sha256
 from denude.io.rock_csv import read_rock_table, write_rock_table
+from denude.io.styles import write_category_names
 from denude.io.vectors import read_points, vector_files
 from denude.registry import OUTPUT_LAYERS
 from denude.reports.run_record import RUN_RECORD
@@ -45,13 +46,15 @@ def layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: Ma
         spec = output_spec(name, settings)
         sources = [
             VrtSource(f"{TILES_DIR}/{t.id}/{info.file}", True, t.width, t.height, t.col_off, t.row_off,
-                      info.dtype, (min(settings.block_size, t.width), min(settings.block_size, t.height)))
+                      spec.dtype, (min(settings.block_size, t.width), min(settings.block_size, t.height)))
             for t in tiles if t.id in done
         ]
         vrt_name = Path(info.file).with_suffix(".vrt").name
-        write_vrt(out / vrt_name, grid.crs_wkt, grid.transform, grid.width, grid.height, info.dtype,
-                  info.nodata, sources, spec.description, spec.tags, spec.colormap)
+        write_vrt(out / vrt_name, grid.crs_wkt, grid.transform, grid.width, grid.height, spec.dtype,
+                  spec.nodata, sources, spec.description, spec.tags, spec.colormap)
         written.append(vrt_name)
+        if write_category_names(out / vrt_name, list(spec.categories)):   # GDAL reads <vrt>.aux.xml too
+            written.append(vrt_name + ".aux.xml")
     return written
 
 

@@ -23,6 +23,7 @@ from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 from denude.io.outdir import commit_dir, make_staging_dir, remove_path
 from denude.io.rasters import RasterWriter
+from denude.io.layer_meta import write_map_styles
 from denude.io.rock_csv import write_rock_table
 from denude.registry import LAYERS, OUTPUT_LAYERS
 from denude.reports.run_record import RUN_RECORD, HashJob, hashed_paths, run_record, write_run_record
@@ -76,7 +77,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
             writers[name].finish()
         outputs = [writers[name].close().name for name in layers]
         write_rock_table(report.rocks, staging / "rocks.csv")
-        outputs += ["rocks.csv", RUN_RECORD]
+        outputs += ["rocks.csv", *write_map_styles(staging, settings, report.rocks, layers), RUN_RECORD]
         wall = time.perf_counter() - started
         record = run_record(
             "map", settings, report, hashes.result(), grid, grid_source(settings), total.as_dict(), outputs, wall,

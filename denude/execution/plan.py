@@ -26,6 +26,7 @@ from denude.io.jobfile import MapSettings
 from denude.io.rasters import (
     GridReader, OutputSpec, check_georeferenced, footprint_in_crs, inspect_raster, open_raster, plan_warp,
 )
+from denude.io.layer_meta import layer_extras
 from denude.io.rock_csv import read_rock_table
 from denude.registry import INPUT_ROLES, OUTPUT_LAYERS
 
@@ -57,10 +58,13 @@ def output_spec(layer: str, settings: MapSettings) -> OutputSpec:
             tags[f"class_{i}"] = name
         colormap = tuple(DEFAULT_COLOURS[i] if i < len(DEFAULT_COLOURS) else (128, 128, 128, 255)
                          for i in range(len(names)))
+    extras = layer_extras(layer, settings, load_rocks(settings) if layer == "lithology" else None)
+    tags["sources"] = extras.pop("sources")
+    fields = dict(name=info.file, dtype=info.dtype, nodata=info.nodata, colormap=colormap)
+    fields.update(extras)
     return OutputSpec(
-        name=info.file, dtype=info.dtype, nodata=info.nodata,
         overview_resampling=info.overview_resampling, tags=tuple(tags.items()),
-        description=f"{info.quantity} [{info.units}]", colormap=colormap,
+        description=f"{info.quantity} [{info.units}]", **fields,
     )
 
 

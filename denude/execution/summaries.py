@@ -40,7 +40,7 @@ import shapely
 from pyproj import CRS as ProjCRS
 from rasterio.windows import Window
 
-from denude.core.hazard import HAZARD_NODATA
+from denude.core.hazard import HAZARD_NODATA, HIGHEST_CLASS_MIN_SHARE
 from denude.core.zonal import ZonalAccumulator
 from denude.errors import OutOfRangeWarning, ZoneError
 from denude.execution.sinkhole_evaluation import evaluate_sinkholes
@@ -184,8 +184,9 @@ def locate_points(points, grid: Grid, points_path):
 
 
 def summary_tables(sets, layers: SummaryLayers, point_values, class_names, rock_names, grid: Grid,
-                   area_method: str) -> dict:
-    """Finished accumulators -> the tables of the summary files (zones, planning units, points)."""
+                   area_method: str, highest_class_min_share: float = HIGHEST_CLASS_MIN_SHARE) -> dict:
+    """Finished accumulators -> the tables of the summary files (zones, planning units, points).
+    ``highest_class_min_share``: the share of a zone's area its highest class must cover (0-1)."""
     points = layers.points
     tables = {}
     for zs in sets:
@@ -193,7 +194,8 @@ def summary_tables(sets, layers: SummaryLayers, point_values, class_names, rock_
             tree = shapely.STRtree(zs.layer.geometry)
             pidx, zidx = tree.query(points.geometry, predicate="intersects")
             zs.acc.add_points(zidx, point_values["rate"][pidx])
-        cols = zs.acc.finalize(class_names, rock_names, with_points=points is not None)
+        cols = zs.acc.finalize(class_names, rock_names, with_points=points is not None,
+                               highest_min_share=highest_class_min_share)
         if zs.name == ZONES_LAYER:  # shares are asked for planning units only
             cols = {k: v for k, v in cols.items() if not k.startswith("hazard_share_")}
         whole = zone_areas_km2(zs.layer.geometry, grid)
@@ -220,7 +222,8 @@ def summary_paths(out_path, layers_given: tuple):
 
 def summary_meta(tool: str, folder_key: str, folder, out_path, tables, layers: SummaryLayers, csv_paths,
                  area_method, class_names, grid: Grid, point_rc, hashes: dict,
-                 zones_layer_name: str | None = None) -> tuple[dict, dict]:
+                 zones_layer_name: str | None = None,
+                 highest_class_min_share: float = HIGHEST_CLASS_MIN_SHARE) -> tuple[dict, dict]:
     """(sidecar, GeoPackage layer names) of a summary (the same keys for `summarize` and `batch --zones`).
     The zone layer keeps the input layer's name unless ``zones_layer_name`` is given."""
     zones = layers.zones
@@ -231,7 +234,7 @@ def summary_meta(tool: str, folder_key: str, folder, out_path, tables, layers: S
         **sidecar_head(tool),
         folder_key: str(folder),
         "outputs": sidecar_outputs(out_path, tables, layer_names, csv_paths),
-        "method": summary_method(area_method, class_names),
+        "method": {**summary_method(area_method, class_names), "highest_class_min_share": highest_class_min_share},
         "zones": layer_provenance(layers.zones_path, zones),
         "raster_crs": grid.crs.to_string(),
         "units": COLUMN_UNITS,
@@ -262,6 +265,7 @@ def summarize_outputs(
     progress: Optional[Callable[[int, int], None]] = None,
     workers: Optional[int] = None,
     breaks_from_record: bool = False,
+    highest_class_min_share: float = HIGHEST_CLASS_MIN_SHARE,
 ) -> dict:
     """Summarise a ``denude map`` output folder over zones, optional planning units and
     sinkhole points, and write ``out_path`` (GeoPackage), CSV twins and a
@@ -293,10 +297,12 @@ def summarize_outputs(
         sets = zone_sets(layers, len(class_names), len(rock_names), grid)
         point_rc, point_values = locate_points(layers.points, grid, points_path)
         _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress, workers)
-        tables = summary_tables(sets, layers, point_values, class_names, rock_names, grid, area_method)
+        tables = summary_tables(sets, layers, point_values, class_names, rock_names, grid, area_method,
+                                highest_class_min_share)
         meta, layer_names = summary_meta(
             "denude summarize", "map_folder", outdir.resolve(), out_path, tables, layers, csv_paths, area_method,
-            class_names, grid, point_rc, {p: {"sha256": f.result()} for p, f in hashes.items()})
+            class_names, grid, point_rc, {p: {"sha256": f.result()} for p, f in hashes.items()},
+            highest_class_min_share=highest_class_min_share)
         if layers.points is not None:
             meta["sinkhole_evaluation"] = evaluate_sinkholes(
                 datasets[RATE_TIF], datasets[HAZARD_TIF], areas_row, point_rc, point_values["hazard"],

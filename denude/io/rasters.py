@@ -36,6 +36,7 @@ from rasterio.windows import Window
 from denude.errors import GridError, InputError, OutputError
 from denude.io.grid import Grid
 from denude.io.mosaic import is_virtual_path
+from denude.io.styles import write_category_names
 from denude.registry import INT32_NODATA
 
 #: Resampling methods by name; the CLI and job file take these names.
@@ -461,6 +462,9 @@ class OutputSpec:
     tags: tuple = ()                # (key, value) pairs written to the dataset metadata
     description: str = ""
     colormap: tuple | None = None   # RGBA per class index
+    units: str = ""                 # GDAL band unit type (e.g. "mm/kyr")
+    categories: tuple = ()          # GDAL category names: entry k names value k
+    source_nodata: float | None = None  # nodata of the arrays handed in, when it differs from ``nodata``
 
 
 def overview_factors(height: int, width: int, block_size: int) -> list[int]:
@@ -550,6 +554,8 @@ class RasterWriter:
         ds.update_tags(**dict(self.spec.tags))
         if self.spec.description:
             ds.set_band_description(1, self.spec.description)
+        if self.spec.units:
+            ds.set_band_unit(1, self.spec.units)
         if self.spec.colormap is not None:
             ds.write_colormap(1, {i: tuple(rgba) for i, rgba in enumerate(self.spec.colormap)})
 
@@ -563,6 +569,8 @@ class RasterWriter:
                 if item is self._STOP:
                     break
                 array, window = item
+                if self.spec.source_nodata is not None:   # e.g. int32 codes into a uint8 raster
+                    array = np.where(array == self.spec.source_nodata, self.spec.nodata, array)
                 self.dataset.write(array.astype(self.spec.dtype, copy=False), 1, window=window)
             with FINISH_SLOTS:
                 self._finish_file()
@@ -608,6 +616,7 @@ class RasterWriter:
                 ds.build_overviews(factors, resampling)
                 ds.update_tags(ns="rio_overview", resampling=self.spec.overview_resampling)
             ds.close()
+            write_category_names(self.path, list(self.spec.categories))
             return
         ds.close()
         rasterio.shutil.copy(
@@ -620,6 +629,7 @@ class RasterWriter:
             OVERVIEWS="AUTO",
         )
         self.work_path.unlink()
+        write_category_names(self.path, list(self.spec.categories))
 
     def abort(self) -> None:
         """Stop writing and close the file without finishing it (the caller removes it)."""

@@ -202,3 +202,23 @@ def vector_files(path: Path) -> list[Path]:
     if path.suffix.lower() == ".shp":
         return sorted(p for p in path.parent.glob(path.stem + ".*") if p.is_file())
     return [path]
+
+
+#: Prefix given to a user's attribute whose name clashes with a summary column.
+CLASH_PREFIX = "user_"
+
+
+def user_attributes(frame, skip=(), taken=()) -> dict:
+    """The attribute columns of a user's layer (not its geometry nor the ``skip`` columns),
+    as name -> array; a name in ``taken`` (the summary's own columns) gets ``CLASH_PREFIX``
+    (again, until free)."""
+    out = {}
+    used = set(taken) | set(skip)
+    for column in frame.columns:
+        if column == frame.geometry.name or column in skip:
+            continue
+        name = str(column)
+        while name in used or name in out:
+            name = CLASH_PREFIX + name
+        out[name] = frame[column].to_numpy()
+    return out

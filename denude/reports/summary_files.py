@@ -16,7 +16,8 @@ from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.core.zonal import PERCENTILE_RELATIVE_RESOLUTION
 from denude.errors import OutputError
 from denude.io.outdir import staged_files
-from denude.io.vectors import write_layers
+from denude.io.styles import map_class_scheme, style_summary
+from denude.io.vectors import user_attributes, write_layers
 
 ZONES_LAYER = "zones"
 UNITS_LAYER = "planning_units"
@@ -32,7 +33,10 @@ COLUMN_UNITS = {
     "denudation_p90_mm_per_kyr": "mm/kyr", "rock_volume_m3_per_yr": "m3/yr",
     "rock_mass_t_per_yr": "t/yr", "co2_drawdown_t_per_yr": "t/yr",
     "hazard_area_km2_*": "km2", "hazard_share_*": "1", "hazard_max_class": "class index (-1 none)",
-    "hazard_max_name": "class name",
+    "hazard_max_name": "class name (deprecated: any single cell; use hazard_highest_name)",
+    "hazard_dominant_class": "class index (-1 none)", "hazard_dominant_name": "class name (largest area)",
+    "hazard_highest_class": "class index (-1 none)",
+    "hazard_highest_name": "class name (highest class covering at least the minimum share of area_km2)",
     "dominant_rock": "rock name", "dominant_rock_share": "1", "sinkhole_count": "points",
     "sinkhole_density_per_km2": "1/km2", "sinkhole_mean_rate_mm_per_kyr": "mm/kyr",
     "sinkhole_rate_ratio": "1", "denudation_mm_per_kyr": "mm/kyr",
@@ -78,6 +82,9 @@ def summary_method(area_method: str, class_names) -> dict:
         "rock_mass": "rock volume x bulk density of the cell's rock type (rocks.csv, g/cm3 = t/m3)",
         "sinkholes": "rate, hazard class and rock of the cell holding each point; a point counts in every zone it intersects",
         "hazard_classes": class_names,
+        "hazard_labels": ("hazard_dominant_name: the class of largest area; hazard_highest_name: the highest "
+                          "class covering at least highest_class_min_share of area_km2; hazard_max_name "
+                          "(any single cell) is deprecated and will be removed in the next release"),
     }
 
 
@@ -93,6 +100,7 @@ def zone_table(layer, cols, class_names, area_method, method_column: bool = True
     """GeoDataFrame of the zone layer: id, summary columns, method (unless ``method_column``
     is False), geometry (file's CRS)."""
     data = {layer.id_field: layer.frame[layer.id_field].to_numpy()}
+    data.update(user_attributes(layer.frame, skip=(layer.id_field,), taken=list(cols) + ["cell_area_method"]))
     data.update(cols)
     if method_column:
         data["cell_area_method"] = np.full(len(layer), "geodesic" if area_method.startswith("geodesic") else "planar", dtype=object)
@@ -101,9 +109,7 @@ def zone_table(layer, cols, class_names, area_method, method_column: bool = True
 
 def point_table(points, values, class_names, rock_names):
     frame = points.frame
-    keep = [c for c in frame.columns if c != frame.geometry.name and c not in
-            ("denudation_mm_per_kyr", "hazard_class", "hazard_name", "rock")]
-    data = {c: frame[c].to_numpy() for c in keep}
+    data = user_attributes(frame, taken=("denudation_mm_per_kyr", "hazard_class", "hazard_name", "rock"))
     hz = values["hazard"]
     data["denudation_mm_per_kyr"] = values["rate"]
     data["hazard_class"] = hz.astype(np.int64)
@@ -119,6 +125,7 @@ def write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta)
     finals = [out_path, *csv_paths.values(), sidecar]
     with staged_files(finals) as temps:
         write_layers(temps[0], {layer_names.get(k, k): v for k, v in tables.items()})
+        _style_summary(temps[0], tables, layer_names, meta)
         for (key, path), tmp in zip(csv_paths.items(), temps[1:-1]):
             try:
                 tables[key].drop(columns=tables[key].geometry.name).to_csv(tmp, index=False)
@@ -128,3 +135,13 @@ def write_summary_files(out_path, tables, layer_names, csv_paths, sidecar, meta)
             temps[-1].write_text(json.dumps(meta, indent=2, default=str) + "\n", encoding="utf-8")
         except OSError as exc:
             raise OutputError(f"{sidecar}: cannot write ({exc.strerror or exc}); choose a writable folder") from None
+
+
+def _style_summary(gpkg, tables, layer_names, meta) -> None:
+    """Layer descriptions and default styles (``layer_styles``) of a summary GeoPackage."""
+    kinds = {ZONES_LAYER: "zones", UNITS_LAYER: "planning_units", POINTS_LAYER: "sinkholes"}
+    folder = meta.get("map_folder") or meta.get("batch_folder")
+    scheme = map_class_scheme(folder) if folder else None
+    breaks, names = scheme if scheme else (None, meta.get("method", {}).get("hazard_classes"))
+    style_summary(gpkg, {layer_names.get(k, k): kinds.get(k, "zones") for k in tables},
+                  {layer_names.get(k, k): v for k, v in tables.items()}, breaks, names)
