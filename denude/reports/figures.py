@@ -8,6 +8,7 @@ average for rates), which is plenty for a page and keeps large maps cheap.
 from __future__ import annotations
 
 import io
+import struct
 import math
 from dataclasses import dataclass
 
@@ -127,9 +128,11 @@ def _rect(xy, width, height, colour):
 def _png(fig, name: str, title: str, caption: str) -> Figure:
     plt = _mpl()
     buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=DPI)
-    width, height = (int(round(v)) for v in fig.get_size_inches() * DPI)
+    # "tight" keeps legends placed outside the axes inside the picture; the size is then read
+    # back from the PNG header (IHDR: width and height, big-endian, at bytes 16-24).
+    fig.savefig(buffer, format="png", dpi=DPI, bbox_inches="tight", pad_inches=0.08)
     plt.close(fig)
+    width, height = struct.unpack(">II", buffer.getvalue()[16:24])
     return Figure(name, title, caption, buffer.getvalue(), width, height)
 
 

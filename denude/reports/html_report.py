@@ -84,6 +84,8 @@ def fmt(value, digits: int = SIGNIFICANT) -> str:
     """A number rounded to ``digits`` significant digits, with thousands separators; '-' for none."""
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "-"
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+        return f"{int(value):,}"          # counts stay whole numbers
     value = float(value)
     if value == 0:
         return "0"
