@@ -57,6 +57,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
+from denude.core.scenario import Scenario
 from denude.errors import DenudeError, InputError, JobFileError
 
 from denude.registry import (CHEMISTRIES, CHOICES, LAYERS, NEGATIVE_RUNOFF, PATH_FIELDS, PCO2_FROM_AET,
@@ -82,6 +83,10 @@ SECTIONS = {
     },
     "hazard": {"breaks_mm_per_kyr": "hazard_breaks_mm_per_kyr", "names": "hazard_names"},
 }
+
+#: Sections parsed elsewhere (``io/uncertainty_spec.py``): [uncertainty] is read by the
+#: uncertainty run; [scenario] becomes ``MapSettings.scenario``.
+OTHER_SECTIONS = ("uncertainty", "scenario")
 
 @dataclass(frozen=True)
 class MapSettings:
@@ -117,6 +122,7 @@ class MapSettings:
     negative_runoff: str = "error"              # NEGATIVE_RUNOFF
     hazard_breaks_mm_per_kyr: tuple = DEFAULT_BREAKS_MM_PER_KYR
     hazard_names: tuple = DEFAULT_CLASS_NAMES
+    scenario: Scenario | None = None            # changes to the inputs (job file [scenario])
     job_file: str | None = None
 
     def __post_init__(self):
@@ -130,6 +136,8 @@ class MapSettings:
         out = {}
         for f in dataclasses.fields(self):
             value = getattr(self, f.name)
+            if isinstance(value, Scenario):
+                value = value.as_dict()
             out[f.name] = list(value) if isinstance(value, tuple) else value
         return out
 
@@ -210,6 +218,11 @@ def check_settings(s: MapSettings) -> None:
         )
     _choice(s.lithology_resampling, CHOICES["lithology_resampling"], f"{where}lithology resampling")
     _choice(s.continuous_resampling, CHOICES["continuous_resampling"], f"{where}continuous resampling")
+    from denude.io.uncertainty_spec import scenario_problem
+
+    problem = scenario_problem(s.scenario, s.precipitation is not None, s.aet is not None)
+    if problem:
+        raise InputError(f"{where}{problem}")
 
 
 def _parse_value(value, field_name: str, base: Path | None):
@@ -266,12 +279,18 @@ def read_job_file(path) -> dict:
     fields: dict = {"job_file": str(path.resolve())}
     all_keys = {k: sec for sec, keys in SECTIONS.items() for k in keys}
     for section, table in data.items():
+        if section in OTHER_SECTIONS:
+            if section == "scenario":
+                from denude.io.uncertainty_spec import parse_scenario
+
+                fields["scenario"] = parse_scenario(table, path)
+            continue
         if section not in SECTIONS:
-            close = difflib.get_close_matches(section, list(SECTIONS), n=1)
+            close = difflib.get_close_matches(section, list(SECTIONS) + list(OTHER_SECTIONS), n=1)
             if not isinstance(table, dict) and section in all_keys:
                 hint = f"put it under [{all_keys[section]}]"
             else:
-                hint = f"did you mean [{close[0]}]?" if close else f"use one of {', '.join('[' + s + ']' for s in SECTIONS)}"
+                hint = f"did you mean [{close[0]}]?" if close else f"use one of {', '.join('[' + s + ']' for s in (*SECTIONS, *OTHER_SECTIONS))}"
             raise JobFileError(f"job file {path}: unknown section or key {section!r}; {hint}")
         if not isinstance(table, dict):
             raise JobFileError(f"job file {path}: {section!r} must be a [{section}] table")
