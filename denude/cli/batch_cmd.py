@@ -80,7 +80,7 @@ def read_batch_job(job: Path):
     """(map fields or None, [batch] table) of a job file. Without a [batch] table the map
     fields are None and the file goes to `build_settings` unchanged; with one, the other
     tables are flattened here (paths resolved against the file's folder)."""
-    from denude.io.jobfile import SECTIONS, load_toml
+    from denude.io.jobfile import OTHER_SECTIONS, SECTIONS, load_toml
 
     data = load_toml(job)
     batch = data.pop("batch", None)
@@ -96,6 +96,12 @@ def read_batch_job(job: Path):
     base = job.resolve().parent
     fields = {}
     for section, table in data.items():
+        if section in OTHER_SECTIONS:  # parsed in io/uncertainty_spec.py
+            if section == "scenario":
+                from denude.io.uncertainty_spec import parse_scenario
+
+                fields["scenario"] = parse_scenario(table, job)
+            continue
         if section not in SECTIONS or not isinstance(table, dict):
             close = difflib.get_close_matches(section, list(SECTIONS) + ["batch"], n=1)
             hint = f"did you mean [{close[0]}]?" if close else "use [inputs], [grid], [run], [hazard] or [batch]"

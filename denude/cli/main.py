@@ -67,6 +67,8 @@ COMMAND_MODULES = (
     "denude.cli.summarize_cmd",
     "denude.cli.batch_cmd",
     "denude.cli.demo_cmd",
+    "denude.cli.uncertainty_cmd",
+    "denude.cli.compare_cmd",
 )
 
 def _version(value: bool) -> None:

@@ -8,6 +8,8 @@ from denude.execution.raster_job import inspect_job, limit_malloc_arenas, resolv
 from denude.execution.summaries import summarize_outputs
 from denude.execution.batch import ZoneSpec, run_batch
 from denude.execution.tiling import DEFAULT_TILE_SIZE
+from denude.execution.uncertainty_run import run_uncertainty
+from denude.execution.compare import run_compare
 
 __all__ = ["DEFAULT_TILE_SIZE", "ZoneSpec", "inspect_job", "limit_malloc_arenas", "resolve_grid",
-           "run_batch", "run_map", "summarize_outputs"]
+           "run_batch", "run_compare", "run_map", "run_uncertainty", "summarize_outputs"]
