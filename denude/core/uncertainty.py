@@ -301,8 +301,11 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
         clipped[k] = n_clip
 
 
+# Only the parallel builds are cached: numba keys its on-disk cache by function and signature,
+# not by the parallel flag, so a cached serial and parallel build of one function would be
+# taken for each other (and a "serial" call from a worker thread would enter the threading layer).
 draw_loop_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_draw_loop)
-draw_loop_serial = numba.njit(parallel=False, cache=True, nogil=True)(_draw_loop)
+draw_loop_serial = numba.njit(parallel=False, cache=False, nogil=True)(_draw_loop)
 
 
 @dataclass
@@ -380,7 +383,7 @@ def _quantiles(values, probs, out):
 
 
 _quantiles_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_quantiles)
-_quantiles_serial = numba.njit(parallel=False, cache=True, nogil=True)(_quantiles)
+_quantiles_serial = numba.njit(parallel=False, cache=False, nogil=True)(_quantiles)  # see draw_loop_serial
 
 
 def cell_quantiles(values, probs=QUANTILES, parallel: bool = True) -> np.ndarray:
@@ -422,12 +425,14 @@ def zone_draw_sums(run_zone, run_start, cell, coverage, row_area_km2, width, rat
 
 
 def variance_shares(inputs, y):
-    """First-order variance shares of ``y`` (N draws) over the columns of ``inputs`` (N x k):
-    squared standardised regression coefficients of a least-squares fit of y on the inputs,
-    SRC_i^2 = (b_i sd(x_i) / sd(y))^2. For a model that is linear in independent inputs they
-    are the variance fractions and sum to the fit's R^2 (about 1); the rest is what the linear
-    fit misses (curvature, interactions, cell-level noise). Returns (shares (k,), R^2); NaN
-    when y does not vary."""
+    """First-order variance shares of ``y`` (N draws) over the columns of ``inputs`` (N x k),
+    from a least-squares fit of y on the inputs: Pratt's product measure
+    d_i = SRC_i x r(x_i, y), with SRC_i = b_i sd(x_i) / sd(y) the standardised regression
+    coefficient. For inputs uncorrelated in the sample d_i = SRC_i^2, the variance fraction of a
+    model linear in independent inputs; the d_i always sum to the fit's R^2 (about 1 for a
+    nearly additive model; the rest is curvature, interactions and cell-level noise). A tiny
+    share may come out slightly negative from sampling. Returns (shares (k,), R^2); NaN when y
+    does not vary."""
     x = np.asarray(inputs, np.float64)
     y = np.asarray(y, np.float64)
     k = x.shape[1]
@@ -437,10 +442,13 @@ def variance_shares(inputs, y):
     xc = x - x.mean(axis=0)
     yc = y - y.mean()
     coef, *_ = np.linalg.lstsq(xc, yc, rcond=None)
-    src = coef * x.std(axis=0) / sd_y
+    sd_x = x.std(axis=0)
+    src = coef * sd_x / sd_y
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = (xc.T @ yc) / (y.size * sd_x * sd_y)
     resid = yc - xc @ coef
     r2 = 1.0 - float(resid @ resid) / float(yc @ yc)
-    return src**2, r2
+    return src * r, r2
 
 
 def summary_quantiles(values, probs=QUANTILES, axis=-1) -> np.ndarray:

@@ -93,11 +93,12 @@ METHOD = {
                         "rate = rock volume / covered area of computed cells; rock mass = volume x the draw's "
                         "bulk density of each cell's rock"),
     "zone_quantiles": "over the draws of the zone quantity, numpy 'linear' quantiles",
-    "variance_share": ("first-order share of the variance of the zone's mean rate over the draws: squared "
-                       "standardised regression coefficient of a least-squares fit of the mean rate on the "
-                       "regional draws of each input (normal variates; uniform values for ranges). They sum "
-                       "to about the fit's R^2 (variance_share_sum); 1 - sum is what a linear fit misses "
-                       "(curvature, interactions, cell-level noise)"),
+    "variance_share": ("first-order share of the variance of the zone's mean rate over the draws, from a "
+                       "least-squares fit of the mean rate on the regional draws of each input (normal variates; "
+                       "uniform values for ranges): Pratt's product measure, standardised regression coefficient "
+                       "x correlation of the input with the mean rate (= the squared standardised coefficient "
+                       "for uncorrelated inputs). The shares sum to the fit's R^2 (variance_share_sum); "
+                       "1 - sum is what a linear fit misses (curvature, interactions, cell-level noise)"),
     "covers": ("only the listed input errors; not the structure of the model (White 1984 equilibrium, "
                "open-system CO2), not kinetics, not errors of the lithology map; rates stay an upper bound "
                "unless a saturation ratio is given"),
@@ -384,9 +385,7 @@ def zone_columns(sums: dict, valid_area: np.ndarray, inputs: np.ndarray, input_n
     shares = np.full((n_zones, len(input_names)), np.nan)
     r2 = np.full(n_zones, np.nan)
     for z in np.flatnonzero(has):
-        s, fit = variance_shares(inputs, mean[z])
-        shares[z] = s
-        r2[z] = np.sum(s) if np.all(np.isfinite(s)) else np.nan
+        shares[z], r2[z] = variance_shares(inputs, mean[z])
     for i, name in enumerate(input_names):
         cols[f"variance_share_{name}"] = shares[:, i]
     cols["variance_share_sum"] = r2
