@@ -362,6 +362,14 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
     from denude.execution.raster_job import warn_about_counts
 
     warn_about_counts({"out_of_range": counts["out_of_range"]})
+    if counts["clipped_draws"]:
+        import warnings
+
+        from denude.errors import DenudeWarning
+
+        warnings.warn(DenudeWarning(
+            f"{counts['clipped_draws']} cell draws left 0-90 degrees C or 1e-8-1 atm and were clipped to that range; "
+            "check the temperature and PCO2 errors under [uncertainty] if that many is unexpected"), stacklevel=2)
     return UncertaintyRunSummary(str(out), n_draws, seed, outputs + ["run.json"], counts, wall, record)
 
 
