@@ -121,6 +121,30 @@ def test_spread_matches_first_order_propagation_and_shares_sum_to_one():
     np.testing.assert_allclose(shares, parts / parts.sum(), atol=0.03)
 
 
+def test_soil_co2_coefficient_errors_move_log10_pco2():
+    from denude.core.soil_co2 import pco2_from_aet_atm, soil_co2_gain
+
+    s_a, s_b, n, aet = 0.02, 0.03, 4000, 600.0
+    spec = UncertaintySpec(soil_co2_intercept_sigma_log10=s_a, soil_co2_amplitude_sigma_log10=s_b)
+    rocks = RockTable.builtin()
+    lk = rocks.lookup()
+    table = draw_table(spec, 8, n, lk.codes, lk.mineral_index, lk.density_g_cm3, lk.purity,
+                       [rocks.by_code(int(c)).name for c in lk.codes], pco2_from_aet=True)
+    assert table.input_names == ["soil_co2_intercept", "soil_co2_amplitude"]
+    g = float(soil_co2_gain(aet))
+    p0 = float(pco2_from_aet_atm(aet))
+    block = draw_block(np.ones((1, 1), np.int64), 500.0, p0, 10.0, 1.0, lk, table, "white", spec=spec, seed=8,
+                       soil_gain=g)
+    e_p, _ = _elasticities(10.0, p0)
+    # derived: log10 PCO2 = (a + da) + (b + db) g, so sd(ln D) = e_p ln10 sqrt(s_a^2 + (g s_b)^2)
+    expected = e_p * math.log(10) * math.sqrt(s_a**2 + (g * s_b) ** 2)
+    assert np.log(block.rate[0].astype(np.float64)).std() == pytest.approx(expected, rel=0.05)
+    # without AET-derived PCO2 the soil-CO2 errors are not drawn
+    plain = draw_table(spec, 8, 10, lk.codes, lk.mineral_index, lk.density_g_cm3, lk.purity,
+                       ["x"] * len(lk.codes), pco2_from_aet=False)
+    assert plain.input_names == [] and np.all(plain.soil_a == 0)
+
+
 def test_saturation_ratio_and_rock_ranges_scale_the_rate():
     spec = UncertaintySpec(saturation_ratio=(("dolomite", 0.3, 0.9),),
                            rocks=(("limestone", "purity", 0.85, 1.0), ("limestone", "density_g_cm3", 2.5, 2.7)))

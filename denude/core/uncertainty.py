@@ -233,6 +233,8 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
     n_p = tables.shape[2]
     n_codes = code_row.shape[0]
     lp_max = math.log10(p_max)
+    inv_dt = 1.0 / dt
+    inv_dlp = 1.0 / dlp
     noisy = noise_q > 0.0 or noise_p > 0.0 or noise_t > 0.0
     for k in numba.prange(n):
         clipped[k] = 0
@@ -271,6 +273,8 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
         grow = row0 + k // width
         gcol = col0 + k % width
         n_clip = 0
+        rf = rate_factor[row]
+        cf = co2_factor[row]
         for d in range(n_draws):
             td = tk + dtemp[d]
             lpd = lpk + dlogp[d] + soil_a[d] + soil_b[d] * gk
@@ -286,8 +290,8 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
                 n_clip += 1
                 td = min(max(td, t_min), t_max)
                 lpd = min(max(lpd, lp0), lp_max)
-            x = (td - t0) / dt
-            y = (lpd - lp0) / dlp
+            x = (td - t0) * inv_dt
+            y = (lpd - lp0) * inv_dlp
             i = min(int(x), n_t - 2)
             j = min(int(y), n_p - 2)
             fx = x - i
@@ -296,8 +300,8 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
                     + fx * ((1.0 - fy) * tables[mineral, i + 1, j] + fy * tables[mineral, i + 1, j + 1]))
             q_eff = qd if qd > 0.0 else 0.0
             base = load * q_eff * fk
-            rate_out[k, d] = rate_factor[d, row] * base
-            co2_out[k, d] = co2_factor[d, row] * base
+            rate_out[k, d] = rf[d] * base
+            co2_out[k, d] = cf[d] * base
         clipped[k] = n_clip
 
 
@@ -355,7 +359,7 @@ def draw_block(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, solub
     loop = draw_loop_parallel if parallel else draw_loop_serial
     loop(flat_codes, ok, q, p, t, f, g, code_min, code_row, rocks.mineral_index,
          draws.q_factor, draws.dlogp, draws.dtemp, draws.soil_a, draws.soil_b,
-         draws.rate_factor, draws.co2_factor,
+         np.ascontiguousarray(draws.rate_factor.T), np.ascontiguousarray(draws.co2_factor.T),
          spec.runoff_sigma_ln if noise else 0.0, spec.pco2_sigma_log10 if noise else 0.0,
          spec.temperature_sigma_c if noise else 0.0, int(seed), int(row0), int(col0), int(width),
          tables, t0, dt, lp0, dlp, TEMPERATURE_MIN_C, TEMPERATURE_MAX_C, PCO2_MAX_ATM,
@@ -366,20 +370,43 @@ def draw_block(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, solub
 
 
 # ------------------------------------------------------------------------- quantiles
+#: Cells per chunk of the quantile loop (one scratch buffer per chunk).
+_QUANTILE_CHUNK = 1024
+
+
 def _quantiles(values, probs, out):
     n = values.shape[0]
     m = values.shape[1]
-    for k in numba.prange(n):
-        if m == 0 or math.isnan(values[k, 0]):
+    n_chunks = (n + _QUANTILE_CHUNK - 1) // _QUANTILE_CHUNK
+    for c in numba.prange(n_chunks):
+        buf = np.empty(m, np.float32)
+        perm = np.arange(m)
+        for k in range(c * _QUANTILE_CHUNK, min(n, (c + 1) * _QUANTILE_CHUNK)):
+            if m == 0 or math.isnan(values[k, 0]):
+                for j in range(probs.shape[0]):
+                    out[j, k] = np.nan
+                continue
+            # insertion sort starting from the previous cell's order: regional draws order
+            # neighbouring cells almost alike, so few elements move (sorted values do not
+            # depend on the starting order, so chunking cannot change a result)
+            for i in range(m):
+                buf[i] = values[k, perm[i]]
+            for i in range(1, m):
+                v = buf[i]
+                pv = perm[i]
+                j = i - 1
+                while j >= 0 and buf[j] > v:
+                    buf[j + 1] = buf[j]
+                    perm[j + 1] = perm[j]
+                    j -= 1
+                buf[j + 1] = v
+                perm[j + 1] = pv
             for j in range(probs.shape[0]):
-                out[j, k] = np.nan
-            continue
-        s = np.sort(values[k].astype(np.float64))
-        for j in range(probs.shape[0]):
-            h = (m - 1) * probs[j]
-            lo = int(math.floor(h))
-            hi = min(lo + 1, m - 1)
-            out[j, k] = s[lo] + (h - lo) * (s[hi] - s[lo])
+                h = (m - 1) * probs[j]
+                lo = int(math.floor(h))
+                hi = min(lo + 1, m - 1)
+                a = np.float64(buf[lo])
+                out[j, k] = a + (h - lo) * (np.float64(buf[hi]) - a)
 
 
 _quantiles_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_quantiles)
