@@ -39,7 +39,7 @@ from denude.core.uncertainty import (
     QUANTILES,
     UNKNOWN_CODE,
     UncertaintySpec,
-    cell_quantiles,
+    block_quantiles,
     draw_block,
     draw_table,
     summary_quantiles,
@@ -240,8 +240,9 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
                            table, settings.chemistry, spec=spec, seed=seed, row0=int(window.row_off),
                            col0=int(window.col_off), soil_gain=gain, lithology_valid=inputs.valid, parallel=False)
         shape = inputs.codes.shape
-        bands = {"denudation": cell_quantiles(block.rate, parallel=False).reshape((len(QUANTILES),) + shape),
-                 "co2_drawdown": cell_quantiles(block.co2, parallel=False).reshape((len(QUANTILES),) + shape)}
+        q_rate, q_co2 = block_quantiles(block, table, parallel=False)
+        bands = {"denudation": q_rate.reshape((len(QUANTILES),) + shape),
+                 "co2_drawdown": q_co2.reshape((len(QUANTILES),) + shape)}
         status = block.status
         counts = BlockCounts(cells=int(status.size), computed=int(np.count_nonzero(status == 0)),
                              nodata=int(np.count_nonzero(status == NODATA)),
