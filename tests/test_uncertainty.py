@@ -18,6 +18,7 @@ from denude.core.dissolution import equilibrium_load_mol_per_l
 from denude.core.rocks import RockTable
 from denude.core.uncertainty import (
     UncertaintySpec,
+    block_quantiles,
     cell_quantiles,
     draw_block,
     draw_table,
@@ -159,6 +160,13 @@ def test_saturation_ratio_and_rock_ranges_scale_the_rate():
     lime = block.rate[0] / base[0]                        # (2.60 x 0.95) / (rho x purity)
     assert lime.min() >= 2.60 * 0.95 / (2.7 * 1.0) - 1e-6 and lime.max() <= 2.60 * 0.95 / (2.5 * 0.85) + 1e-6
     assert np.all(block.rate[2] == base[2])               # gypsum untouched
+    # band quantiles of both layers equal numpy's linear quantiles of the draws (limestone's CO2
+    # sorted anew: its density and purity vary; dolostone's follows the rate order)
+    q_rate, q_co2 = block_quantiles(block, table)
+    for k in range(3):
+        np.testing.assert_allclose(q_rate[:, k], np.quantile(block.rate[k].astype(float), [0.05, 0.5, 0.95]), rtol=1e-6)
+        np.testing.assert_allclose(q_co2[:, k], np.quantile(block.co2[k].astype(float), [0.05, 0.5, 0.95]),
+                                   rtol=1e-6, atol=1e-12)
 
 
 # ------------------------------------------------------------------------- parsing
