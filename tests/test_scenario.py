@@ -164,3 +164,18 @@ def test_compare_refuses_different_grids(two_runs, make_raster, tmp_path):
     assert result.exit_code == 1
     assert "12 x 10 cells" in result.stderr and "56 x 40" in result.stderr
     assert len(result.stderr.strip().splitlines()) == 1 and not (tmp_path / "c").exists()
+
+
+def test_batch_job_file_carries_the_scenario(limestone, tmp_path):
+    from denude.cli.batch_cmd import read_batch_job
+
+    path = tmp_path / "batch.toml"
+    path.write_text(f'[inputs]\nlithology = "{limestone}"\nrunoff = 500\npco2 = 0.01\ntemperature = 10\n'
+                    "[batch]\ntile_size = 16\n[scenario]\nruntime = 1\n")
+    with pytest.raises(JobFileError) as err:
+        read_batch_job(path)
+    assert "runtime" in str(err.value) and str(path) in str(err.value)
+    path.write_text(path.read_text().replace("runtime = 1", "runoff_factor = 0.5")
+                    + "[uncertainty]\nrunoff_sigma_ln = 0.1\n")
+    fields, batch = read_batch_job(path)
+    assert fields["scenario"] == Scenario(runoff_factor=0.5) and batch["tile_size"] == 16

@@ -235,9 +235,9 @@ def _read(path):
 def test_workers_tiling_and_seed_give_identical_results(job, tmp_path):
     one = _run(job, tmp_path / "one", workers=1)
     two = _run(job, tmp_path / "two", workers=2)
-    again = _run(job, tmp_path / "again", workers=2)
-    tiled = _run(job, tmp_path / "tiled", workers=2, block=32)
-    other = _run(job, tmp_path / "other", seed=4)
+    _run(job, tmp_path / "again", workers=2)
+    _run(job, tmp_path / "tiled", workers=2, block=32)
+    _run(job, tmp_path / "other", seed=4)
     for name in band_files() + ["zones_uncertainty.csv"]:
         a = (tmp_path / "one" / name).read_bytes()
         assert a == (tmp_path / "two" / name).read_bytes(), name
@@ -253,7 +253,7 @@ def test_workers_tiling_and_seed_give_identical_results(job, tmp_path):
 
 
 def test_bands_bracket_the_deterministic_map_and_zone_table_columns(job, map_inputs, tmp_path):
-    run = _run(job, tmp_path / "bands", draws=64)
+    _run(job, tmp_path / "bands", draws=64)
     path, zones = job
     run_map(build_settings({"out": str(tmp_path / "map")}, job_file=path))
     rate = _read(tmp_path / "map" / "denudation_mm_per_kyr.tif")

@@ -103,7 +103,6 @@ def _run_json(folder: Path):
 def run_compare(base_dir, scenario_dir, out, zones=None, overwrite: bool = False) -> CompareSummary:
     """Write the comparison of two map output folders into ``out`` (see the module doc);
     ``zones``: a ``ZoneSpec`` for the per-zone table."""
-    import rasterio
     from rasterio.windows import Window
 
     from denude.execution.blocks import block_windows

@@ -45,7 +45,6 @@ from denude.io.jobfile import MapSettings, is_constant
 from denude.registry import INPUT_ROLES, LAYERS, OUTPUT_LAYERS
 from denude.io.mosaic import is_virtual_path
 from denude.io.rasters import (
-    INT32_NODATA,
     GridReader,
     OutputSpec,
     RasterInfo,
@@ -463,6 +462,9 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
         report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
     if settings.pco2_from_aet:
         report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
+    if settings.scenario is not None and not settings.scenario.is_neutral:
+        changes = ", ".join(f"{k} {v:g}" for k, v in settings.scenario.changes().items())
+        report.notes.append(f"scenario applied to the inputs: {changes}")
     if is_constant(settings.runoff) and settings.runoff < 0:
         report.notes.append(f"runoff {settings.runoff:g} mm/yr is negative: taken as 0 mm/yr (--negative-runoff zero)")
     if settings.pco2_units != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
