@@ -84,7 +84,7 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
 #: raster (no precipitation and AET), so "precipitation x 0.9" is expressed as runoff x 0.9.
 DEMO_SCENARIO = {"temperature_delta_c": 2.0, "runoff_factor": 0.9}
 #: Draws of the demo's uncertainty bands (few, so the demo stays quick).
-DEMO_DRAWS = 16
+DEMO_DRAWS = 32
 
 
 def _demo_scenario_and_bands(settings, out: Path, data: Path, overwrite: bool) -> list[str]:
