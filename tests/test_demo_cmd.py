@@ -49,6 +49,27 @@ def test_demo_writes_every_output(demo_single):
     assert np.all(rate[(lith == 0) & np.isfinite(rate)] == 0)
 
 
+def test_demo_writes_scenario_comparison_and_bands(demo_single):
+    out = demo_single
+    for name in ("scenario_warming/denudation_mm_per_kyr.tif", "comparison_warming/denudation_ratio.tif",
+                 "comparison_warming/denudation_difference_mm_per_kyr.tif", "comparison_warming/zones_change.csv",
+                 "uncertainty/denudation_p05_mm_per_kyr.tif", "uncertainty/co2_drawdown_p95_t_per_km2_yr.tif",
+                 "uncertainty/zones_uncertainty.csv", "uncertainty/run.json"):
+        assert (out / name).is_file(), name
+    with rasterio.open(out / "comparison_warming" / "denudation_ratio.tif") as ds:
+        ratio = ds.read(1)
+    lith = rasterio.open(out / "lithology_code.tif").read(1)
+    # 10 % less runoff (D linear in runoff, derived) and +2 C: carbonates (retrograde solubility,
+    # derived from Plummer & Busenberg 1982) fall by more than 10 %; gypsum (solubility rising
+    # with temperature below about 40 C, phreeqc.dat constants) by less
+    carbonate = np.isin(lith, (1, 2, 4)) & np.isfinite(ratio)
+    assert np.all(ratio[carbonate] < 0.9)
+    gypsum = (lith == 3) & np.isfinite(ratio)
+    assert np.all((ratio[gypsum] > 0.9) & (ratio[gypsum] < 0.95))
+    run = json.loads((out / "scenario_warming" / "run.json").read_text())
+    assert run["settings"]["scenario"]["temperature_delta_c"] == 2.0
+
+
 def test_demo_refuses_existing_folder(demo_single):
     result = runner.invoke(app, ["demo", str(demo_single)])
     assert result.exit_code == 1

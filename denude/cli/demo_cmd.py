@@ -85,10 +85,38 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
                                   layer="watersheds", id_field="watershed_id", overwrite=overwrite)
     lines.append(f"calibration against {calibration['samples']['rows']} invented water samples: {out / 'calibration'}")
 
+    lines += _demo_scenario_and_bands(settings, out, data, overwrite)
+
     from denude.reports.html_report import build_report
 
     lines.append(f"report: {build_report(out, out / 'report.html', summary=table).html}")
     return lines
+
+
+#: The demo's warming scenario: +2 degrees C and 10 % less water. The demo region has a runoff
+#: raster (no precipitation and AET), so "precipitation x 0.9" is expressed as runoff x 0.9.
+DEMO_SCENARIO = {"temperature_delta_c": 2.0, "runoff_factor": 0.9}
+#: Draws of the demo's uncertainty bands (few, so the demo stays quick).
+DEMO_DRAWS = 32
+
+
+def _demo_scenario_and_bands(settings, out: Path, data: Path, overwrite: bool) -> list[str]:
+    """The warming scenario mapped and compared with the baseline in ``out``, and the
+    uncertainty bands of the baseline from the job file's [uncertainty] section."""
+    from denude.core.scenario import Scenario
+    from denude.execution import ZoneSpec, run_compare, run_map, run_uncertainty
+    from denude.io.uncertainty_spec import read_uncertainty
+
+    zones = ZoneSpec(str((data / "watersheds.gpkg").resolve()), "watersheds", "watershed_id")
+    warm_dir = out / "scenario_warming"
+    run_map(settings.replace(out=str(warm_dir), scenario=Scenario(**DEMO_SCENARIO)))
+    compare_dir = out / "comparison_warming"
+    run_compare(out, warm_dir, compare_dir, zones, overwrite=overwrite)
+    bands_dir = out / "uncertainty"
+    run_uncertainty(settings.replace(out=str(bands_dir)), read_uncertainty(data / "job.toml"), DEMO_DRAWS, 1, zones)
+    return [f"warming scenario (+2 C, runoff x 0.9): {warm_dir}",
+            f"comparison with the baseline: {compare_dir} (difference and ratio rasters, zones_change.csv)",
+            f"uncertainty bands ({DEMO_DRAWS} draws): {bands_dir} (p05/p50/p95 rasters, zones_uncertainty.csv)"]
 
 
 def demo(

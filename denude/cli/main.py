@@ -73,6 +73,8 @@ COMMAND_MODULES = (
     "denude.cli.demo_cmd",
     "denude.cli.calibrate_cmd",
     "denude.cli.report_cmd",
+    "denude.cli.uncertainty_cmd",
+    "denude.cli.compare_cmd",
 )
 
 def _version(value: bool) -> None:

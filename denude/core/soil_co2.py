@@ -25,15 +25,27 @@ def log10_atm_to_atm(log10_pco2_atm):
     return 10.0 ** np.asarray(log10_pco2_atm, dtype=np.float64)
 
 
+#: Brook, Folkoff & Box (1983) coefficients (from memory, science notes section 4):
+#: log10 PCO2 [atm] = intercept + amplitude * (1 - exp(-rate * AET [mm/yr])).
+BROOK_INTERCEPT_LOG10_ATM = -3.47
+BROOK_AMPLITUDE_LOG10_ATM = 2.09
+BROOK_RATE_PER_MM = 0.00172
+
+
+def soil_co2_gain(aet_mm_per_yr):
+    """The AET term 1 - exp(-0.00172 AET) of Brook et al. (1983) [1]; negative AET floored at 0."""
+    aet = np.asarray(aet_mm_per_yr, dtype=np.float64)
+    aet = np.where(aet < 0.0, 0.0, aet)
+    return 1.0 - np.exp(-BROOK_RATE_PER_MM * aet)
+
+
 def pco2_from_aet_atm(aet_mm_per_yr):
     """Soil PCO2, atm, from actual evapotranspiration (mm/yr), Brook, Folkoff & Box (1983):
 
     ``log10 PCO2 = -3.47 + 2.09 (1 - exp(-0.00172 AET))`` (coefficients from memory,
     science notes section 4). Negative AET is floored at 0.
     """
-    aet = np.asarray(aet_mm_per_yr, dtype=np.float64)
-    aet = np.where(aet < 0.0, 0.0, aet)
-    return 10.0 ** (-3.47 + 2.09 * (1.0 - np.exp(-0.00172 * aet)))
+    return 10.0 ** (BROOK_INTERCEPT_LOG10_ATM + BROOK_AMPLITUDE_LOG10_ATM * soil_co2_gain(aet_mm_per_yr))
 
 
 #: Units a PCO2 input may be given in (the registry's ``CHOICES["pco2_units"]`` lists the same).

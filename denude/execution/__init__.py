@@ -11,7 +11,9 @@ from denude.execution.summaries import summarize_outputs
 from denude.execution.tiling import DEFAULT_TILE_SIZE
 from denude.execution.validation import JobReport, inspect_job, validate_job
 from denude.execution.calibration import run_calibration
+from denude.execution.uncertainty_run import run_uncertainty
+from denude.execution.compare import run_compare
 
 __all__ = ["DEFAULT_TILE_SIZE", "BatchSummary", "JobReport", "MapRunSummary", "ZoneSpec", "inspect_job",
-           "limit_malloc_arenas", "resolve_grid", "run_batch", "run_calibration", "run_map", "summarize_outputs",
-           "validate_job"]
+           "limit_malloc_arenas", "resolve_grid", "run_batch", "run_calibration", "run_compare", "run_map",
+           "run_uncertainty", "summarize_outputs", "validate_job"]

@@ -16,12 +16,10 @@ from rasterio.windows import Window
 from denude.core.constants import MINERAL_INDEX
 from denude.core.hazard import classify
 from denude.core.kernel import BlockCounts, compute_block
-from denude.core.rates import runoff_from_water_balance_mm_per_yr, zero_negative_runoff_mm_per_yr
-from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
 from denude.execution.plan import InputReaders, JobPlan, prepare_job
+from denude.execution.window_inputs import read_window_inputs
 from denude.io.grid import Grid
-from denude.io.jobfile import MapSettings, is_constant
-from denude.io.rasters import INT32_NODATA
+from denude.io.jobfile import MapSettings
 
 @dataclass
 class WindowResult:
@@ -35,33 +33,6 @@ class WindowResult:
     unknown_codes: tuple = ()                          # codes not in the rock table
 
 
-def _value(readers: InputReaders, settings: MapSettings, role: str, window: Window, ranges: dict | None = None):
-    value = settings.pco2 if role == "pco2" else getattr(settings, role)
-    if value is None:
-        return None
-    if is_constant(value):
-        return float(value)
-    data = readers.read(role, window).astype(np.float64)
-    if ranges is not None and np.isfinite(data).any():
-        ranges[role] = (float(np.nanmin(data)), float(np.nanmax(data)))
-    return data
-
-
-def _pco2_atm(readers, settings: MapSettings, window: Window, aet, ranges=None):
-    if settings.pco2_from_aet:
-        return pco2_from_aet_atm(aet)
-    raw = _value(readers, settings, "pco2", window, ranges)
-    if settings.pco2_units == "atm":
-        return raw
-    if settings.pco2_units == "log10atm":
-        return log10_atm_to_atm(raw)
-    if settings.elevation is not None:
-        pressure = air_pressure_atm(_value(readers, settings, "elevation", window, ranges))
-    else:
-        pressure = 1.0 if settings.air_pressure_atm is None else settings.air_pressure_atm
-    return ppmv_to_atm(raw, pressure)
-
-
 def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: InputReaders | None = None,
                    layers=None) -> WindowResult:
     """Read every input for one window of the target grid, run ``compute_block`` and return the
@@ -73,24 +44,11 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
 
 
 def _read_inputs(plan: JobPlan, window: Window, readers: InputReaders, ranges: dict):
-    """(codes, runoff [mm/yr], PCO2 [atm], temperature [degrees C], soluble fraction, negative
-    runoff cells) of one window; constants stay floats."""
-    settings = plan.settings
-    codes = readers.read("lithology", window)
-    valid = codes != INT32_NODATA
-    aet = _value(readers, settings, "aet", window, ranges)
-    negative = 0
-    if settings.runoff is not None:
-        runoff = _value(readers, settings, "runoff", window, ranges)
-        if settings.negative_runoff == "zero":
-            runoff, negative = zero_negative_runoff_mm_per_yr(runoff, counted=valid)
-    else:
-        runoff = runoff_from_water_balance_mm_per_yr(
-            _value(readers, settings, "precipitation", window, ranges), aet)
-    pco2 = _pco2_atm(readers, settings, window, aet, ranges)
-    temperature = _value(readers, settings, "temperature", window, ranges)
-    fraction = _value(readers, settings, "soluble_fraction", window, ranges)
-    return codes, valid, runoff, pco2, temperature, fraction, negative
+    """(codes, valid, runoff [mm/yr], PCO2 [atm], temperature [degrees C], soluble fraction,
+    negative runoff cells) of one window, the scenario applied; constants stay floats."""
+    inputs = read_window_inputs(readers, plan.settings, window, ranges)
+    return (inputs.codes, inputs.valid, inputs.runoff, inputs.pco2, inputs.temperature, inputs.fraction,
+            inputs.negative_runoff)
 
 
 def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = None, layers=None) -> WindowResult:

@@ -23,6 +23,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
 
 from denude.cautions import CAUTION
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
+from denude.core.scenario import Scenario
 from denude.errors import DenudeError, InputError, JobFileError, OutputError
 
 from denude.registry import (CHOICES, INPUT_ROLES, LAYERS, PATH_FIELDS, PCO2_FROM_AET,
@@ -133,6 +134,10 @@ SECTIONS = {section: {key: spec.field for key, spec in keys.items()}
 #: [batch] keys (options of `run_batch`, not MapSettings fields).
 BATCH_KEYS = tuple(JOB_TABLE[BATCH_SECTION])
 
+#: Sections parsed and checked in ``io/uncertainty_spec.py``: [uncertainty] is read by the
+#: uncertainty run; [scenario] becomes ``MapSettings.scenario``.
+OTHER_SECTIONS = ("uncertainty", "scenario")
+
 
 @dataclass(frozen=True)
 class MapSettings:
@@ -168,6 +173,7 @@ class MapSettings:
     negative_runoff: str = "error"              # NEGATIVE_RUNOFF
     hazard_breaks_mm_per_kyr: tuple = DEFAULT_BREAKS_MM_PER_KYR
     hazard_names: tuple = DEFAULT_CLASS_NAMES
+    scenario: Scenario | None = None            # changes to the inputs (job file [scenario])
     job_file: str | None = None
 
     def __post_init__(self):
@@ -181,6 +187,8 @@ class MapSettings:
         out = {}
         for f in dataclasses.fields(self):
             value = getattr(self, f.name)
+            if isinstance(value, Scenario):
+                value = value.as_dict()
             out[f.name] = list(value) if isinstance(value, tuple) else value
         return out
 
@@ -274,6 +282,11 @@ def check_settings(s: MapSettings) -> None:
         raise InputError(f"{where}block_size {s.block_size!r} must be a multiple of 16 from 16 to 8192 cells; e.g. 512")
     for name in ("layout", "compress", "lithology_resampling", "continuous_resampling"):
         check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
+    from denude.io.uncertainty_spec import scenario_problem  # lazily: it pulls the numba kernels in
+
+    problem = scenario_problem(s.scenario, s.precipitation is not None, s.aet is not None)
+    if problem:
+        raise InputError(f"{where}{problem}")
 
 
 def _parse_value(value, field_name: str, base: Path | None):
@@ -329,13 +342,16 @@ def _job_tables(path: Path) -> dict:
     for sec, keys in JOB_TABLE.items():
         for k in keys:
             all_keys.setdefault(k, sec)
+    known = (*JOB_TABLE, *OTHER_SECTIONS)
     for section, table in data.items():
+        if section in OTHER_SECTIONS:  # checked by io/uncertainty_spec.py
+            continue
         if section not in JOB_TABLE:
-            close = difflib.get_close_matches(section, list(JOB_TABLE), n=1)
+            close = difflib.get_close_matches(section, list(known), n=1)
             if not isinstance(table, dict) and section in all_keys:
                 hint = f"put it under [{all_keys[section]}]"
             else:
-                hint = f"did you mean [{close[0]}]?" if close else f"use one of {', '.join('[' + s + ']' for s in JOB_TABLE)}"
+                hint = f"did you mean [{close[0]}]?" if close else f"use one of {', '.join('[' + s + ']' for s in known)}"
             raise JobFileError(f"job file {path}: unknown section or key {section!r}; {hint}")
         if not isinstance(table, dict):
             raise JobFileError(f"job file {path}: {section!r} must be a [{section}] table")
@@ -360,7 +376,11 @@ def read_job_file(path) -> dict:
     base = path.resolve().parent
     fields: dict = {"job_file": str(path.resolve())}
     for section, table in data.items():
-        if section == BATCH_SECTION:
+        if section == "scenario":
+            from denude.io.uncertainty_spec import parse_scenario  # lazily: it pulls the numba kernels in
+
+            fields["scenario"] = parse_scenario(table, path)
+        if section == BATCH_SECTION or section in OTHER_SECTIONS:
             continue
         for key, value in table.items():
             name = SECTIONS[section][key]

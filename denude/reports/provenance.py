@@ -1,6 +1,6 @@
 """Provenance of raster jobs: reading run.json back, and terminal text for `check` and `map`.
 
-The record itself is written by ``denude.execution.raster_job.run_map`` (inside the staging
+The record itself is written by ``denude.execution.map_run.run_map`` (inside the staging
 folder, so it is renamed into place with the rasters); this module only reads and renders.
 """
 
