@@ -77,8 +77,9 @@ class _ZoneSet:
     acc: ZonalAccumulator
 
 
-def _prepare(name, layer, n_classes, n_rocks, grid):
-    geoms = layer.geometry
+def zone_extents(geoms, grid: Grid):
+    """(WKB per zone or None, bounds (n, 4) in grid CRS units (NaN for empty), True where the zone's
+    bounds overlap the grid) of polygons ``geoms`` already in the grid's CRS."""
     nonempty = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
     bounds = np.full((len(geoms), 4), np.nan)
     if nonempty.any():
@@ -87,7 +88,12 @@ def _prepare(name, layer, n_classes, n_rocks, grid):
     inside = nonempty & (bounds[:, 0] < xmax) & (bounds[:, 2] > xmin) & (bounds[:, 1] < ymax) & (bounds[:, 3] > ymin)
     wkbs = np.empty(len(geoms), dtype=object)
     wkbs[nonempty] = shapely.to_wkb(geoms[nonempty])
-    return _ZoneSet(name, layer, wkbs, bounds, inside, ZonalAccumulator(len(geoms), n_classes, n_rocks))
+    return wkbs, bounds, inside
+
+
+def _prepare(name, layer, n_classes, n_rocks, grid):
+    wkbs, bounds, inside = zone_extents(layer.geometry, grid)
+    return _ZoneSet(name, layer, wkbs, bounds, inside, ZonalAccumulator(len(layer.geometry), n_classes, n_rocks))
 
 
 def zone_partials(outdir, geometries, progress=None, workers: Optional[int] = 1) -> ZonalAccumulator:

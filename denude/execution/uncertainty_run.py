@@ -49,6 +49,7 @@ from denude.core.uncertainty import (
 from denude.errors import InputError
 from denude.execution.blocks import block_windows
 from denude.execution.plan import InputReaders, gdal_env, grid_source, output_spec, prepare_job
+from denude.execution.summaries import zone_extents
 from denude.execution.validation import check_window, refuse_inputs_inside, validate_job, warn_about_counts
 from denude.execution.window import WindowResult
 from denude.execution.window_inputs import read_window_inputs
@@ -150,25 +151,16 @@ def band_spec(layer: str, label: str, settings: MapSettings, draws: int, seed: i
 
 
 def _zone_plan(zones, grid) -> _ZonePlan:
-    import shapely
     from pyproj import CRS
 
     from denude.errors import ZoneError
     from denude.io.vectors import read_polygons
 
     layer = read_polygons(zones.path, zones.layer, zones.id_field, CRS.from_wkt(grid.crs.to_wkt()), what="zone")
-    geoms = layer.geometry
-    nonempty = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    bounds = np.full((len(geoms), 4), np.nan)
-    if nonempty.any():
-        bounds[nonempty] = shapely.bounds(geoms[nonempty])
-    xmin, ymin, xmax, ymax = grid.bounds
-    inside = nonempty & (bounds[:, 0] < xmax) & (bounds[:, 2] > xmin) & (bounds[:, 1] < ymax) & (bounds[:, 3] > ymin)
+    wkbs, bounds, inside = zone_extents(layer.geometry, grid)
     if not inside.any():
         raise ZoneError(f"{zones.path}: no zone overlaps the target grid {tuple(round(v, 6) for v in grid.bounds)}; "
                         "check the zone file and the job cover the same area")
-    wkbs = np.empty(len(geoms), dtype=object)
-    wkbs[nonempty] = shapely.to_wkb(geoms[nonempty])
     return _ZonePlan(layer, wkbs, bounds, inside)
 
 
