@@ -9,6 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from denude.core.constants import CHEMISTRY_MODES
+from denude.core.cover import COVER_NODATA
 from denude.core.hazard import HAZARD_NODATA
 from denude.core.soil_co2 import PCO2_UNIT_NAMES
 
@@ -24,6 +25,7 @@ class InputRole:
     categorical: bool
     unit: str                 # the unit the run expects, e.g. "mm/yr"
     help: str                 # one line for --help and the job-file template
+    auto_resampling: str | None = None   # what 'auto' continuous resampling means for this role (None: by coarsening)
 
 
 #: Raster inputs, in the order they are read and reported.
@@ -36,6 +38,10 @@ INPUT_ROLES: dict[str, InputRole] = {r.name: r for r in (
     InputRole("elevation", False, "m", "Elevation, m above sea level; converts ppmv PCO2 to atm."),
     InputRole("temperature", False, "degrees C", "Temperature, degrees C."),
     InputRole("soluble_fraction", False, "fraction 0-1", "Soluble-area fraction of each cell, 0-1; default 1."),
+    # nearest under 'auto': a 0/1 mask stays 0/1 (bilinear would smear its edges into fractions,
+    # and any fraction > 0 would then count as cover); thickness only meets a threshold.
+    InputRole("cover", False, "m", "Insoluble cover thickness, m (or a 0/1 mask); lithology is then bedrock.",
+              auto_resampling="nearest"),
 )}
 
 #: Settings fields holding a raster path or a number (the continuous roles).
@@ -57,6 +63,7 @@ class OutputLayer:
     units: str
     quantity: str
     formula: str
+    needs: str | None = None  # the optional input role the layer needs (not a default layer without it)
 
 
 INT32_NODATA = -2147483648
@@ -84,13 +91,31 @@ OUTPUT_LAYERS: dict[str, OutputLayer] = {layer.name: layer for layer in (
     OutputLayer(
         "soluble_fraction", "soluble_area_fraction.tif", "float32", float("nan"), "average", "fraction 0-1",
         "soluble-rock area fraction of each cell", "0 on insoluble rock, else the soluble-area fraction input"),
+    OutputLayer(
+        "covered_karst", "covered_karst.tif", "uint8", float(COVER_NODATA), "nearest", "class index",
+        "soluble bedrock exposed or under insoluble cover (screening flag; the rate is unchanged)",
+        "0 no soluble bedrock; 1 soluble fraction > 0 and cover < threshold; 2 soluble fraction > 0 and "
+        "cover >= threshold (> 0)", needs="cover"),
 )}
 
-#: Short layer name -> file name (what --layers accepts, and where each layer is written).
-LAYERS: dict[str, str] = {name: layer.file for name, layer in OUTPUT_LAYERS.items()}
+#: Short layer name -> file name of every layer --layers accepts, in the fixed order.
+ALL_LAYERS: dict[str, str] = {name: layer.file for name, layer in OUTPUT_LAYERS.items()}
+
+#: Short layer name -> file name of the default layers (those needing no optional input):
+#: what a run writes when --layers is not given (plus each layer whose input is given).
+LAYERS: dict[str, str] = {name: layer.file for name, layer in OUTPUT_LAYERS.items() if layer.needs is None}
+
+
+def default_layers(given_roles) -> tuple[str, ...]:
+    """The default layer names of a run whose optional inputs ``given_roles`` (names) are given."""
+    given = set(given_roles)
+    return tuple(name for name, layer in OUTPUT_LAYERS.items() if layer.needs is None or layer.needs in given)
 
 #: Layers a zone summary reads.
 ZONE_LAYERS = ("denudation", "co2_drawdown", "hazard", "lithology", "soluble_fraction")
+
+#: Layers a zone summary reads when the folder has them (their summary columns appear then).
+OPTIONAL_ZONE_LAYERS = ("covered_karst",)
 
 #: Option choices: setting name -> the valid values, the first being the default.
 CHOICES: dict[str, tuple[str, ...]] = {

@@ -30,6 +30,8 @@ def check_command(
     air_pressure: o.AirPressure = None,
     temperature: o.Temperature = None,
     soluble_fraction: o.SolubleFraction = None,
+    cover: o.Cover = None,
+    cover_min_thickness: o.CoverMinThickness = None,
     grid_like: o.GridLike = None,
     grid_crs: o.GridCrs = None,
     grid_resolution: o.GridResolution = None,

@@ -16,7 +16,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from denude.registry import CHOICES, INPUT_ROLES, LAYERS, PCO2_FROM_AET
+from denude.registry import ALL_LAYERS, CHOICES, INPUT_ROLES, LAYERS, PCO2_FROM_AET
 
 
 def choice_enum(name: str) -> type[Enum]:
@@ -79,6 +79,12 @@ AirPressure = Annotated[Optional[float], typer.Option(
 Temperature = Annotated[Optional[str], typer.Option(metavar=VALUE, help=_role("temperature"))]
 SolubleFraction = Annotated[Optional[str], typer.Option(
     metavar=VALUE, help="Soluble-rock area fraction of each cell [0-1] (raster path or number); default 1.")]
+Cover = Annotated[Optional[str], typer.Option(
+    metavar=VALUE, help=_role("cover") + " The lithology is read as bedrock; adds the covered_karst layer "
+                        "(the rate is unchanged).")]
+CoverMinThickness = Annotated[Optional[float], typer.Option(
+    "--cover-min-thickness", metavar="M", min=0.0,
+    help="Least cover thickness [m] that counts as cover (default 0: any thickness > 0, a mask value of 1).")]
 
 # ---------------------------------------------------------------- target grid
 GridLike = Annotated[Optional[str], typer.Option(metavar="RASTER", help="Use this raster's grid as the target grid.")]
@@ -94,7 +100,8 @@ ChemistryText = Annotated[Optional[str], typer.Option(
 BlockSize = Annotated[Optional[int], typer.Option(metavar="CELLS", help="Block and output tile size [cells] (default 512).")]
 GdalCacheMb = Annotated[Optional[int], typer.Option(metavar="MB", help="GDAL block cache [MB] (default 128).")]
 Layers = Annotated[Optional[str], typer.Option(
-    metavar="NAME,...", help=f"Comma-separated output layers (default all): {', '.join(LAYERS)}.")]
+    metavar="NAME,...", help=f"Comma-separated output layers: {', '.join(ALL_LAYERS)} (default: "
+                             f"{', '.join(LAYERS)}, plus covered_karst with --cover).")]
 LayoutText = Annotated[Optional[str], typer.Option(
     metavar=_metavar(Layout), help="auto: COG up to 8192 x 8192 cells, else tiled BigTIFF.")]
 CompressText = Annotated[Optional[str], typer.Option(metavar=_metavar(Compress), help="Compression (default deflate).")]
@@ -123,7 +130,7 @@ AsJson = Annotated[bool, typer.Option(
 #: The map-setting options of map, check and batch (their parameter names = MapSettings fields).
 MAP_SETTING_NAMES = (
     "lithology", "rocks", "runoff", "precipitation", "aet", "pco2", "pco2_units", "elevation", "air_pressure",
-    "temperature", "soluble_fraction", "grid_like", "grid_crs", "grid_resolution", "grid_bounds", "chemistry",
+    "temperature", "soluble_fraction", "cover", "cover_min_thickness", "grid_like", "grid_crs", "grid_resolution", "grid_bounds", "chemistry",
     "workers", "block_size", "gdal_cache_mb", "layers", "layout", "compress", "lithology_resampling",
     "continuous_resampling", "negative_runoff", "overwrite",
 )
@@ -134,6 +141,7 @@ def map_flags(values: dict) -> dict:
     lists of --grid-bounds/--grid-resolution split, an unset --overwrite left to the job file."""
     flags = {name: values.get(name) for name in MAP_SETTING_NAMES}
     flags["air_pressure_atm"] = flags.pop("air_pressure")
+    flags["cover_min_thickness_m"] = flags.pop("cover_min_thickness")
     for key in ("grid_bounds", "grid_resolution"):
         if isinstance(flags.get(key), str):
             try:

@@ -4,6 +4,8 @@ Every cell enters a zone with a weight ``w = coverage fraction x cell area [km2]
 accumulator keeps, per zone, float64 sums that add exactly across blocks and tiles:
 
 * areas [km2]: all cells, cells with a valid rate, soluble rock, per hazard class, per rock row;
+  with a covered-karst class per cell (``denude.core.cover``), soluble rock under cover and
+  exposed soluble rock (weighted by the soluble fraction, like the soluble area);
 * cell counts (cells with coverage > 0, whole cells, valid rate or nodata rate);
 * sum(w*D), sum(w*D**2), min(D), max(D) of the rate D [mm/kyr];
 * sum(w*D) [m3/yr, since 1 mm/kyr over 1 km2 is 1 m3/yr], sum(w*D*density) [t/yr],
@@ -113,13 +115,15 @@ def _rate_bin_float32(r, bits, bin_table, upper):
 def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits, bin_table, upper, fraction, co2,
                 hazard, litho, codes, code_table, density_cell, density_rock, n_classes, n_rocks, edges, log_low, inv_step,
                 area, valid_area, soluble_area, s_wr, s_wr2, s_wrd, s_co2, vmin, vmax,
-                valid_cells, nodata_cells, class_area, rock_area, hist, bins):
+                valid_cells, nodata_cells, class_area, rock_area, hist, bins,
+                cover_class, covered_area, exposed_area):
     """One pass over (zone, cell) pairs, adding into the accumulator arrays in place. The
     pairs come in runs of one zone: run k holds pairs ``run_start[k]:run_start[k + 1]`` of
     zone ``run_zone[k]``; a run's sums are kept in local variables first. ``rate_bits`` is
     the float32 rate viewed as uint32 (empty for float64 rates: bins then come from log10);
     ``code_table[code - codes[0]]`` is a code's rock row when the codes span a short range
-    (empty otherwise: binary search)."""
+    (empty otherwise: binary search). ``cover_class`` (empty: none) is the covered-karst class
+    per cell: class 2 adds w x soluble fraction to ``covered_area``, class 1 to ``exposed_area``."""
     dense = bins.size == 0
     n_codes = codes.size
     n_bins = upper.size
@@ -133,11 +137,14 @@ def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits
     has_litho = litho.size > 0
     has_dcell = density_cell.size > 0
     has_drock = density_rock.size > 0
+    has_cover = cover_class.size > 0
     for k in range(run_zone.size):
         z = run_zone[k]
         t_area = 0.0
         t_valid = 0.0
         t_sol = 0.0
+        t_covered = 0.0
+        t_exposed = 0.0
         t_co2 = 0.0
         t_wr = 0.0
         t_wr2 = 0.0
@@ -162,6 +169,12 @@ def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits
                 f = fraction[c]
                 if f == f:
                     t_sol += w * f
+                    if has_cover:
+                        kc = cover_class[c]
+                        if kc == 2:
+                            t_covered += w * f
+                        elif kc == 1:
+                            t_exposed += w * f
             if has_co2:
                 v = co2[c]
                 if v == v:
@@ -227,6 +240,9 @@ def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits
         area[z] += t_area
         valid_area[z] += t_valid
         soluble_area[z] += t_sol
+        if has_cover:
+            covered_area[z] += t_covered
+            exposed_area[z] += t_exposed
         s_co2[z] += t_co2
         s_wr[z] += t_wr
         s_wr2[z] += t_wr2
@@ -277,8 +293,10 @@ class ZonalAccumulator:
     soluble-area fraction, as in the ``denude map`` output folder.
     """
 
-    def __init__(self, n_zones: int, n_classes: int = 0, n_rocks: int = 0, dense_limit: int = DENSE_HISTOGRAM_LIMIT):
+    def __init__(self, n_zones: int, n_classes: int = 0, n_rocks: int = 0, dense_limit: int = DENSE_HISTOGRAM_LIMIT,
+                 cover: bool = False):
         self.n_zones = int(n_zones)
+        self.cover = bool(cover)        # the covered-karst columns are kept (the folder has the layer)
         self.n_classes = int(n_classes)
         self.n_rocks = int(n_rocks)
         n = self.n_zones
@@ -286,6 +304,8 @@ class ZonalAccumulator:
         self.area_km2 = f()
         self.valid_area_km2 = f()
         self.soluble_area_km2 = f()
+        self.covered_soluble_area_km2 = f()
+        self.exposed_soluble_area_km2 = f()
         self.sum_w_rate = f()           # km2 * mm/kyr = m3/yr
         self.sum_w_rate2 = f()          # km2 * (mm/kyr)^2
         self.sum_w_rate_density = f()   # km2 * mm/kyr * t/m3 = t/yr
@@ -308,11 +328,12 @@ class ZonalAccumulator:
 
     # -- accumulation -------------------------------------------------------------------
     def add(self, zone_index, weight_km2, rate_mm_per_kyr, *, soluble_fraction=None,
-            co2_t_per_km2_yr=None, density_g_cm3=None, hazard_class=None, rock_index=None):
+            co2_t_per_km2_yr=None, density_g_cm3=None, hazard_class=None, rock_index=None, covered_karst=None):
         """Add cells: zone index, weight = coverage x cell area [km2], rate [mm/kyr] (NaN =
         nodata); optional soluble-area fraction [-], CO2 drawdown [t/km2/yr], rock density
         [g/cm3 = t/m3] (NaN = unknown), hazard class (uint8, 255 = nodata) and rock row
-        (-1 = none). One entry per (zone, cell) pair; cells with weight 0 are ignored."""
+        (-1 = none), covered-karst class (uint8: 1 exposed, 2 under cover; see ``add_runs``).
+        One entry per (zone, cell) pair; cells with weight 0 are ignored."""
         zone = np.ascontiguousarray(zone_index, dtype=np.int64).ravel()
         n = zone.size
         rocks = None if rock_index is None else np.ascontiguousarray(rock_index, dtype=np.int64).ravel()
@@ -323,7 +344,7 @@ class ZonalAccumulator:
             hazard_class=None if hazard_class is None else np.asarray(hazard_class, dtype=np.int64),
             lithology_code=rocks,
             rock_codes=np.arange(self.n_rocks, dtype=np.int64) if rocks is not None else None,
-            density_g_cm3=density_g_cm3,
+            density_g_cm3=density_g_cm3, covered_karst=covered_karst,
         )
 
     def add_cells(self, zone_index, cell_index, coverage, cell_area_km2_by_row, width, rate_mm_per_kyr, **layers):
@@ -335,7 +356,7 @@ class ZonalAccumulator:
 
     def add_runs(self, run_zone, run_start, cell_index, coverage, cell_area_km2_by_row, width, rate_mm_per_kyr, *,
                  soluble_fraction=None, co2_t_per_km2_yr=None, hazard_class=None, lithology_code=None,
-                 rock_codes=None, rock_density_g_cm3=None, density_g_cm3=None):
+                 rock_codes=None, rock_density_g_cm3=None, density_g_cm3=None, covered_karst=None):
         """Add (zone, cell) pairs of one block in one compiled pass. The pairs come in runs:
         pairs ``run_start[k]:run_start[k + 1]`` belong to zone ``run_zone[k]``
         (``run_start`` has one entry more than ``run_zone``).
@@ -346,7 +367,9 @@ class ZonalAccumulator:
         x ``cell_area_km2_by_row[cell // width]`` (a length-1 array: the same for all rows).
         A lithology code's rock row is its position in the sorted ``rock_codes`` (-1 if
         absent); its density [g/cm3] is ``rock_density_g_cm3[row]``, or ``density_g_cm3``
-        gives a density per cell directly."""
+        gives a density per cell directly. ``covered_karst``: the covered-karst class per cell
+        (uint8, ``denude.core.cover``; used with the soluble fraction, only by an accumulator
+        made with ``cover=True``)."""
         e = np.zeros(0, np.float64)
         ei = np.zeros(0, np.int64)
         arr = lambda a, dt: e if a is None else np.ascontiguousarray(a, dtype=dt).ravel()  # noqa: E731
@@ -364,6 +387,8 @@ class ZonalAccumulator:
         codes = ei if rock_codes is None else np.ascontiguousarray(rock_codes, dtype=np.int64).ravel()
         fraction = e if soluble_fraction is None else np.ascontiguousarray(soluble_fraction).ravel()
         co2 = e if co2_t_per_km2_yr is None else np.ascontiguousarray(co2_t_per_km2_yr).ravel()
+        cover_class = (np.zeros(0, np.uint8) if covered_karst is None or not self.cover
+                       else np.ascontiguousarray(covered_karst, dtype=np.uint8).ravel())
         if run_start.size != run_zone.size + 1 or (run_start.size and (run_start[0] != 0 or run_start[-1] != cell.size)) \
                 or cov.size != cell.size or np.any(np.diff(run_start) < 0):
             raise ValueError("zone runs do not cover the pair arrays, or pair arrays of different lengths")
@@ -383,6 +408,7 @@ class ZonalAccumulator:
             self.area_km2, self.valid_area_km2, self.soluble_area_km2, self.sum_w_rate, self.sum_w_rate2,
             self.sum_w_rate_density, self.sum_w_co2, self.min_rate, self.max_rate, self.valid_cells,
             self.nodata_cells, self.class_area_km2, self.rock_area_km2, hist, bins,
+            cover_class, self.covered_soluble_area_km2, self.exposed_soluble_area_km2,
         )
         if not self.dense:
             ok = bins >= 0
@@ -414,12 +440,15 @@ class ZonalAccumulator:
     # -- merging and state ----------------------------------------------------------------
     _SUMS = ("area_km2", "valid_area_km2", "soluble_area_km2", "sum_w_rate", "sum_w_rate2",
              "sum_w_rate_density", "sum_w_co2", "valid_cells", "nodata_cells", "class_area_km2",
-             "rock_area_km2", "point_count", "point_valid", "point_sum_rate")
+             "rock_area_km2", "point_count", "point_valid", "point_sum_rate",
+             "covered_soluble_area_km2", "exposed_soluble_area_km2")
 
     def merge(self, other: "ZonalAccumulator") -> "ZonalAccumulator":
         """Add another accumulator over the same zones (e.g. another tile) into this one."""
         if (other.n_zones, other.n_classes, other.n_rocks) != (self.n_zones, self.n_classes, self.n_rocks):
             raise ValueError("cannot merge zonal partials over different zones, classes or rocks")
+        if other.cover != self.cover:
+            raise ValueError("cannot merge zonal partials with and without the covered-karst layer")
         for name in self._SUMS:
             getattr(self, name).__iadd__(getattr(other, name))
         np.minimum(self.min_rate, other.min_rate, out=self.min_rate)
@@ -448,14 +477,17 @@ class ZonalAccumulator:
         out["min_rate"], out["max_rate"] = self.min_rate, self.max_rate
         out["hist_keys"], out["hist_weights"] = self._hist_sparse()
         out["shape"] = np.array([self.n_zones, self.n_classes, self.n_rocks], np.int64)
+        out["cover"] = np.array([int(self.cover)], np.int64)
         return out
 
     @classmethod
     def from_state(cls, state) -> "ZonalAccumulator":
         n_zones, n_classes, n_rocks = (int(v) for v in state["shape"])
-        acc = cls(n_zones, n_classes, n_rocks, dense_limit=-1)
+        cover = bool(int(np.ravel(state["cover"])[0])) if "cover" in state else False
+        acc = cls(n_zones, n_classes, n_rocks, dense_limit=-1, cover=cover)
         for name in cls._SUMS + ("min_rate", "max_rate"):
-            setattr(acc, name, np.array(state[name], copy=True))
+            if name in state:       # partials written before a sum existed keep its zeros
+                setattr(acc, name, np.array(state[name], copy=True))
         acc.hist_keys = np.array(state["hist_keys"], np.int64)
         acc.hist_weights = np.array(state["hist_weights"], np.float64)
         return acc
@@ -501,7 +533,10 @@ class ZonalAccumulator:
         appear if ``with_points`` (default: if any point was added). ``hazard_dominant_*`` is
         the class of largest area, ``hazard_highest_*`` the highest class covering at least
         ``highest_min_share`` (0-1) of ``area_km2``; ``hazard_max_*`` (any single cell) is
-        deprecated and kept one release."""
+        deprecated and kept one release. With ``cover``: ``covered_soluble_area_km2`` and
+        ``exposed_soluble_area_km2`` (soluble area under cover / exposed, km2) and
+        ``covered_soluble_share`` (covered / (covered + exposed); soluble cells of unknown cover
+        are in neither)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             has = self.valid_area_km2 > 0
             mean = np.where(has, self.sum_w_rate / np.where(has, self.valid_area_km2, 1), np.nan)
@@ -524,6 +559,13 @@ class ZonalAccumulator:
             }
             for j, p in enumerate(PERCENTILES):
                 cols[f"denudation_p{p}_mm_per_kyr"] = pct[:, j]
+            if self.cover:
+                soluble_known = self.covered_soluble_area_km2 + self.exposed_soluble_area_km2
+                cols["covered_soluble_area_km2"] = self.covered_soluble_area_km2
+                cols["exposed_soluble_area_km2"] = self.exposed_soluble_area_km2
+                cols["covered_soluble_share"] = np.where(
+                    soluble_known > 0, self.covered_soluble_area_km2 / np.where(soluble_known > 0, soluble_known, 1),
+                    np.nan)
             cols["rock_volume_m3_per_yr"] = self.sum_w_rate
             cols["rock_mass_t_per_yr"] = self.sum_w_rate_density
             cols["co2_drawdown_t_per_yr"] = self.sum_w_co2

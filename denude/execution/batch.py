@@ -50,7 +50,7 @@ from denude.io.mosaic import mosaic_kind, write_mosaic_vrt
 from denude.io.outdir import check_new_folder, discard_folder, remove_path
 from denude.io.rasters import choose_layout
 from denude.io.vectors import read_points
-from denude.registry import INPUT_ROLES, LAYERS, PCO2_FROM_AET, ZONE_LAYERS
+from denude.registry import INPUT_ROLES, OUTPUT_LAYERS, PCO2_FROM_AET, ZONE_LAYERS
 from denude.reports.run_record import RUN_RECORD, HashJob, hashed_paths, run_record, write_run_record
 
 INPUTS_DIR = "inputs"
@@ -218,7 +218,7 @@ class BatchJob:
         self.workers, self.scheduler, self.retries, self.retry_failed = workers, scheduler, retries, retry_failed
         self.merge, self.progress, self.note = merge, progress, note
         self.out = Path(settings.out).resolve()
-        self.layers = tuple(name for name in LAYERS if name in settings.layers)
+        self.layers = tuple(name for name in OUTPUT_LAYERS if name in settings.layers)
         self.key = job_key(settings.as_dict(), size)
         self.tiles_dir = self.out / TILES_DIR
         self.failed: dict = {}

@@ -25,7 +25,7 @@ from denude.io.outdir import commit_dir, make_staging_dir, remove_path
 from denude.io.rasters import RasterWriter
 from denude.io.layer_meta import write_map_styles
 from denude.io.rock_csv import write_rock_table
-from denude.registry import LAYERS, OUTPUT_LAYERS
+from denude.registry import OUTPUT_LAYERS
 from denude.reports.run_record import RUN_RECORD, HashJob, hashed_paths, run_record, write_run_record
 
 # ---------------------------------------------------------------------------- the run
@@ -61,7 +61,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     grid = report.grid
     out = Path(settings.out).resolve()
     windows = block_windows(grid.height, grid.width, settings.block_size)
-    layers = [name for name in LAYERS if name in settings.layers]
+    layers = [name for name in OUTPUT_LAYERS if name in settings.layers]
     hashes = HashJob(hashed_paths(settings, report))
     plan = plan_from_report(report)
     staging = make_staging_dir(out)

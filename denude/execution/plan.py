@@ -19,6 +19,7 @@ from rasterio.windows import Window
 
 import denude
 from denude.cautions import CAUTION, UPPER_BOUND_NOTE
+from denude.core.cover import COVER_CLASS_NAMES, COVER_COLOURS
 from denude.core.hazard import DEFAULT_COLOURS
 from denude.core.rocks import RockTable
 from denude.io.grid import Grid, check_resolution, parse_crs, snap_bounds_outward
@@ -58,6 +59,14 @@ def output_spec(layer: str, settings: MapSettings) -> OutputSpec:
             tags[f"class_{i}"] = name
         colormap = tuple(DEFAULT_COLOURS[i] if i < len(DEFAULT_COLOURS) else (128, 128, 128, 255)
                          for i in range(len(names)))
+    elif layer == "covered_karst":
+        tags["class_names"] = json.dumps(list(COVER_CLASS_NAMES))
+        for i, name in enumerate(COVER_CLASS_NAMES):
+            tags[f"class_{i}"] = name
+        tags["cover_min_thickness_m"] = repr(float(settings.cover_min_thickness_m))
+        tags["cover_rule"] = ("covered where cover thickness > 0 m and >= cover_min_thickness_m; "
+                              "the denudation rate does not depend on cover")
+        colormap = COVER_COLOURS
     extras = layer_extras(layer, settings, load_rocks(settings) if layer == "lithology" else None)
     tags["sources"] = extras.pop("sources")
     fields = dict(name=info.file, dtype=info.dtype, nodata=info.nodata, colormap=colormap)
@@ -110,6 +119,17 @@ def grid_source(settings: MapSettings) -> str:
             "snapped outward to whole cells (origin on multiples of the resolution)")
 
 
+def requested_resampling(settings: MapSettings, role: str) -> str:
+    """The resampling asked for one input role: the lithology or continuous setting; 'auto' of
+    a role with its own auto rule (``InputRole.auto_resampling``: nearest for the cover, so a
+    0/1 mask is not smeared into fractions) becomes that rule."""
+    info = INPUT_ROLES[role]
+    requested = settings.lithology_resampling if info.categorical else settings.continuous_resampling
+    if requested == "auto" and info.auto_resampling is not None:
+        return info.auto_resampling
+    return requested
+
+
 def raster_roles(settings: MapSettings) -> dict[str, str]:
     """Role -> path of every raster input the job reads."""
     roles = {}
@@ -151,9 +171,8 @@ def prepare_job(settings: MapSettings, grid: Grid) -> JobPlan:
 def _prepare_job(settings: MapSettings, grid: Grid, stamps: tuple) -> JobPlan:
     warps = {}
     for role, path in raster_roles(settings).items():
-        categorical = INPUT_ROLES[role].categorical
-        requested = settings.lithology_resampling if categorical else settings.continuous_resampling
-        warps[role] = plan_warp(inspect_raster(path, role), grid, categorical, requested)
+        warps[role] = plan_warp(inspect_raster(path, role), grid, INPUT_ROLES[role].categorical,
+                                requested_resampling(settings, role))
     return JobPlan(settings, grid, warps, load_rocks(settings))
 
 

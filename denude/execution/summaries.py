@@ -47,8 +47,8 @@ from denude.execution.sinkhole_evaluation import evaluate_sinkholes
 from denude.io.coverage import coverage_pairs
 from denude.io.grid import Grid, cell_areas_km2, zone_areas_km2
 from denude.io.map_folder import (
-    CO2_TIF, HAZARD_TIF, LITHOLOGY_TIF, RATE_TIF, REQUIRED_FILES, ROCKS_CSV, SOLUBLE_TIF, hazard_class_names,
-    open_map_folder, output_file,
+    CO2_TIF, COVER_TIF, HAZARD_TIF, LITHOLOGY_TIF, OPTIONAL_FILES, RATE_TIF, REQUIRED_FILES, ROCKS_CSV, SOLUBLE_TIF,
+    hazard_class_names, open_map_folder, output_file,
 )
 from denude.io.outdir import check_new_files
 from denude.io.rasters import file_sha256
@@ -91,9 +91,9 @@ def zone_extents(geoms, grid: Grid):
     return wkbs, bounds, inside
 
 
-def _prepare(name, layer, n_classes, n_rocks, grid):
+def _prepare(name, layer, n_classes, n_rocks, grid, cover=False):
     wkbs, bounds, inside = zone_extents(layer.geometry, grid)
-    return _ZoneSet(name, layer, wkbs, bounds, inside, ZonalAccumulator(len(layer.geometry), n_classes, n_rocks))
+    return _ZoneSet(name, layer, wkbs, bounds, inside, ZonalAccumulator(len(layer.geometry), n_classes, n_rocks, cover=cover))
 
 
 def zone_partials(outdir, geometries, progress=None, workers: Optional[int] = 1) -> ZonalAccumulator:
@@ -106,7 +106,7 @@ def zone_partials(outdir, geometries, progress=None, workers: Optional[int] = 1)
         lookup = read_rock_table(outdir / ROCKS_CSV).lookup()
         n_classes = len(hazard_class_names(datasets[HAZARD_TIF]))
         layer = _Geoms(np.asarray(geometries, dtype=object))
-        zs = _prepare("zones", layer, n_classes, len(lookup.codes), grid)
+        zs = _prepare("zones", layer, n_classes, len(lookup.codes), grid, cover=COVER_TIF in datasets)
         _accumulate_strips(outdir, datasets, grid, cell_areas_km2(grid)[0], [zs], lookup, None, None, progress, workers)
         return zs.acc
     finally:
@@ -149,16 +149,17 @@ def read_summary_layers(grid: Grid, zones_path, layer=None, id_field=None, units
     return SummaryLayers(zones_path, zones, units_path, units, points_path, points)
 
 
-def zone_sets(layers: SummaryLayers, n_classes: int, n_rocks: int, grid: Grid) -> list:
-    """One accumulator per polygon layer (zones first, then planning units)."""
-    sets = [_prepare(ZONES_LAYER, layers.zones, n_classes, n_rocks, grid)]
+def zone_sets(layers: SummaryLayers, n_classes: int, n_rocks: int, grid: Grid, cover: bool = False) -> list:
+    """One accumulator per polygon layer (zones first, then planning units); ``cover``: the
+    folder has the covered-karst layer (its columns are summed)."""
+    sets = [_prepare(ZONES_LAYER, layers.zones, n_classes, n_rocks, grid, cover)]
     if not sets[0].nonempty.any():
         raise ZoneError(
             f"{layers.zones_path}: no zone overlaps the raster extent {tuple(round(v, 6) for v in grid.bounds)}; "
             "check the zone file and the map output folder cover the same area"
         )
     if layers.units is not None:
-        sets.append(_prepare(UNITS_LAYER, layers.units, n_classes, n_rocks, grid))
+        sets.append(_prepare(UNITS_LAYER, layers.units, n_classes, n_rocks, grid, cover))
     return sets
 
 
@@ -287,7 +288,8 @@ def summarize_outputs(
     datasets, grid = open_map_folder(outdir)
     hasher = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     try:
-        input_files = [output_file(outdir, n) for n in REQUIRED_FILES + (RUN_RECORD,) if output_file(outdir, n).is_file()]
+        input_files = [output_file(outdir, n) for n in REQUIRED_FILES + OPTIONAL_FILES + (RUN_RECORD,)
+                       if output_file(outdir, n).is_file()]
         for p in (zones_path, units_path, points_path):
             if p is not None and Path(p).exists():
                 input_files += vector_files(Path(p))
@@ -300,7 +302,7 @@ def summarize_outputs(
         areas_row, area_method = cell_areas_km2(grid)
         layers = read_summary_layers(grid, zones_path, layer, id_field, units_path, units_layer, units_id_field,
                                      points_path, points_layer)
-        sets = zone_sets(layers, len(class_names), len(rock_names), grid)
+        sets = zone_sets(layers, len(class_names), len(rock_names), grid, cover=COVER_TIF in datasets)
         point_rc, point_values = locate_points(layers.points, grid, points_path)
         _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc, point_values, progress, workers)
         tables = summary_tables(sets, layers, point_values, class_names, rock_names, grid, area_method,
@@ -346,7 +348,7 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
     t = grid.affine
     xmin, _, xmax, _ = grid.bounds
     planar = bool(np.all(areas_row == areas_row[0]))
-    names = (RATE_TIF, HAZARD_TIF, LITHOLOGY_TIF, CO2_TIF, SOLUBLE_TIF)
+    names = (RATE_TIF, HAZARD_TIF, LITHOLOGY_TIF, CO2_TIF, SOLUBLE_TIF) + tuple(n for n in OPTIONAL_FILES if n in datasets)
 
     plan = []
     for r0, r1 in strips:
@@ -375,7 +377,7 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
             pairs.run_zone, pairs.run_start, pairs.cell, pairs.coverage, row_area, grid.width, data[RATE_TIF],
             soluble_fraction=data[SOLUBLE_TIF], co2_t_per_km2_yr=data[CO2_TIF],
             hazard_class=data[HAZARD_TIF], lithology_code=data[LITHOLOGY_TIF],
-            rock_codes=lookup.codes, rock_density_g_cm3=lookup.density_g_cm3,
+            rock_codes=lookup.codes, rock_density_g_cm3=lookup.density_g_cm3, covered_karst=data.get(COVER_TIF),
         )
 
     # exactextract holds the GIL; reading (rasterio) and summing (numba, nogil) run beside it
@@ -411,8 +413,8 @@ def _worker(outdir, strips, payload, point_rc):
     datasets, grid = open_map_folder(Path(outdir))
     try:
         lookup = read_rock_table(Path(outdir) / ROCKS_CSV).lookup()
-        sets = [_ZoneSet(name, None, wkbs, bounds, nonempty, ZonalAccumulator(len(wkbs), n_classes, n_rocks))
-                for name, wkbs, bounds, nonempty, n_classes, n_rocks in payload]
+        sets = [_ZoneSet(name, None, wkbs, bounds, nonempty, ZonalAccumulator(len(wkbs), n_classes, n_rocks, cover=cover))
+                for name, wkbs, bounds, nonempty, n_classes, n_rocks, cover in payload]
         values = None
         if point_rc is not None:
             n = point_rc[0].size
@@ -451,7 +453,8 @@ def _accumulate_strips(outdir, datasets, grid, areas_row, sets, lookup, point_rc
         return
     n_chunks = min(len(strips), workers)
     chunks = [list(c) for c in np.array_split(np.arange(len(strips)), n_chunks)]
-    payload = [(zs.name, zs.wkbs, zs.bounds, zs.nonempty, zs.acc.n_classes, zs.acc.n_rocks) for zs in sets]
+    payload = [(zs.name, zs.wkbs, zs.bounds, zs.nonempty, zs.acc.n_classes, zs.acc.n_rocks, zs.acc.cover)
+               for zs in sets]
     done = 0
     context = multiprocessing.get_context("spawn")
     with concurrent.futures.ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:

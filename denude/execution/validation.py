@@ -21,7 +21,7 @@ import numpy as np
 from denude.core.dissolution import warn_out_of_range
 from denude.core.rocks import RockTable
 from denude.errors import CoverageWarning, DenudeError, DenudeWarning, GridError, InputError, OutputError
-from denude.execution.plan import JobPlan, gdal_env, load_rocks, raster_roles, resolve_grid
+from denude.execution.plan import JobPlan, gdal_env, load_rocks, raster_roles, requested_resampling, resolve_grid
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings, is_constant
 from denude.io.mosaic import is_virtual_path
@@ -52,6 +52,8 @@ PLAUSIBLE = {
     "temperature": (-70.0, 60.0, "give temperature in degrees C (not kelvin or tenths of a degree)"),
     "elevation": (-500.0, 9000.0, "give elevation in metres above sea level"),
     "soluble_fraction": (0.0, 1.0, "give the soluble-area fraction as 0-1 (not percent)"),
+    # the deepest sediment-filled basins hold a few km of fill; more looks like cm or mm
+    "cover": (0.0, 5000.0, "give the cover thickness in m (or a 0/1 mask)"),
     "pco2:atm": (0.0, 1.0, "values above 1 atm look like ppmv: use --pco2-units ppmv"),
     "pco2:ppmv": (1.0, 1e6, "values below 1 ppmv look like atm: use --pco2-units atm"),
     "pco2:log10atm": (-6.0, 0.0, "give log10 of PCO2 in atm (e.g. -2), or use --pco2-units atm"),
@@ -238,8 +240,7 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
     settings, grid = report.settings, report.grid
     categorical = INPUT_ROLES[role].categorical
     info = describe_dataset(ds, path, role)
-    requested = settings.lithology_resampling if categorical else settings.continuous_resampling
-    item = InputReport(role, info=info, warp=plan_warp(info, grid, categorical, requested))
+    item = InputReport(role, info=info, warp=plan_warp(info, grid, categorical, requested_resampling(settings, role)))
     item.overlap = overlap_fraction(info, grid)
     if role == "lithology" and grid.width * grid.height > MAX_SUPERSAMPLING * info.width * info.height:
         raise GridError(

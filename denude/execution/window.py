@@ -14,10 +14,11 @@ import numpy as np
 from rasterio.windows import Window
 
 from denude.core.constants import MINERAL_INDEX
+from denude.core.cover import classify_cover
 from denude.core.hazard import classify
 from denude.core.kernel import BlockCounts, compute_block
 from denude.execution.plan import InputReaders, JobPlan, prepare_job
-from denude.execution.window_inputs import read_window_inputs
+from denude.execution.window_inputs import input_value, read_window_inputs
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 
@@ -36,7 +37,7 @@ class WindowResult:
 def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: InputReaders | None = None,
                    layers=None) -> WindowResult:
     """Read every input for one window of the target grid, run ``compute_block`` and return the
-    output arrays (all six layers unless ``layers`` names a subset) and counts.
+    output arrays (the settings' layers unless ``layers`` names a subset) and counts.
 
     Takes only picklable arguments; ``readers`` (open datasets) is an optional per-thread cache.
     """
@@ -57,8 +58,10 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
     own = readers is None
     readers = readers or InputReaders(plan)
     ranges: dict = {}
+    wanted = set(layers or settings.layers)
     try:
         codes, valid, runoff, pco2, temperature, fraction, negative = _read_inputs(plan, window, readers, ranges)
+        cover = input_value(readers, settings, "cover", window, ranges) if "covered_karst" in wanted else None
     finally:
         if own:
             readers.close()
@@ -66,7 +69,6 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
     result = compute_block(codes, runoff, pco2, temperature, lookup, settings.chemistry,
                            soluble_fraction=fraction, lithology_valid=valid, warn=False)
     result.counts.negative_runoff = negative
-    wanted = set(layers or settings.layers)
     row = lookup.row_index(codes)
     known = valid & (row >= 0)
     present = np.bincount(row[known], minlength=len(lookup.codes)) > 0
@@ -83,12 +85,20 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
         arrays["hazard"] = classify(result.denudation_mm_per_kyr, settings.hazard_breaks_mm_per_kyr)
     if "lithology" in wanted:
         arrays["lithology"] = codes
-    if "soluble_fraction" in wanted:
+    if "soluble_fraction" in wanted or "covered_karst" in wanted:
         mineral = np.where(known, lookup.mineral_index[np.maximum(row, 0)], 0)
         f = np.broadcast_to(np.asarray(1.0 if fraction is None else fraction, dtype=np.float64), codes.shape)
         out = np.where(known, f, np.nan)
         out = np.where(known & (mineral == MINERAL_INDEX["insoluble"]) & np.isfinite(f), 0.0, out)
-        arrays["soluble_fraction"] = out.astype(np.float32)
+        soluble = out.astype(np.float32)
+        if "soluble_fraction" in wanted:
+            arrays["soluble_fraction"] = soluble
+        if "covered_karst" in wanted:
+            # the class reads the soluble fraction as written to its layer (float32), so a
+            # summary of the folder sees the same cells as soluble
+            if cover is None:
+                raise ValueError("the covered_karst layer needs a cover input")
+            arrays["covered_karst"] = classify_cover(soluble, cover, settings.cover_min_thickness_m)
     return WindowResult(window, arrays, result.counts, ranges, codes_present, unknown)
 
 

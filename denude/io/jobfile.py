@@ -22,12 +22,13 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
 from denude.cautions import CAUTION
+from denude.core.cover import check_min_thickness
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
 from denude.core.scenario import Scenario
 from denude.errors import DenudeError, InputError, JobFileError, OutputError
 
-from denude.registry import (CHOICES, INPUT_ROLES, LAYERS, PATH_FIELDS, PCO2_FROM_AET,
-                             REFUSED_LITHOLOGY_RESAMPLING, VALUE_FIELDS)
+from denude.registry import (ALL_LAYERS, CHOICES, INPUT_ROLES, LAYERS, OUTPUT_LAYERS, PATH_FIELDS, PCO2_FROM_AET,
+                             REFUSED_LITHOLOGY_RESAMPLING, VALUE_FIELDS, default_layers)
 
 def available_cores() -> int:
     """Cores this process may run on (``os.sched_getaffinity``; ``os.cpu_count`` where that is
@@ -77,6 +78,12 @@ JOB_TABLE: dict[str, dict[str, JobKey]] = {
                                    "elevation (default 1 atm)."),
         "temperature": JobKey("temperature", 10.0, "Temperature, degrees C: a raster path or a number.", True),
         "soluble_fraction": JobKey("soluble_fraction", 1.0, _role_help("soluble_fraction")),
+        "cover": JobKey("cover", "cover_thickness.tif",
+                        "Insoluble cover over the bedrock: thickness, m, or a 0/1 mask (raster or number); adds the "
+                        "covered_karst layer (the rate is unchanged)."),
+        "cover_min_thickness_m": JobKey("cover_min_thickness_m", 0.0,
+                                        "Least cover thickness, m, that counts as cover (default 0: any thickness > 0, "
+                                        "a mask value of 1)."),
     },
     "grid": {
         "like": JobKey("grid_like", "other.tif", "Use this raster's grid (default: the lithology raster's grid)."),
@@ -94,7 +101,7 @@ JOB_TABLE: dict[str, dict[str, JobKey]] = {
         "workers": JobKey("workers", 2, "Parallel workers (default: the cores available)."),
         "block_size": JobKey("block_size", 512, "Block and output tile size, cells (a multiple of 16)."),
         "gdal_cache_mb": JobKey("gdal_cache_mb", 128, "GDAL block cache, MB."),
-        "layers": JobKey("layers", list(LAYERS), "Output layers (default all)."),
+        "layers": JobKey("layers", list(LAYERS), "Output layers (default all; covered_karst when a cover is given)."),
         "layout": JobKey("layout", CHOICES["layout"][0], f"{_choices('layout')}: COG up to 8192 x 8192 cells, "
                          "else tiled BigTIFF."),
         "compress": JobKey("compress", CHOICES["compress"][0], f"{_choices('compress')}."),
@@ -154,6 +161,8 @@ class MapSettings:
     elevation: str | float | None = None        # m above sea level (ppmv -> atm)
     air_pressure_atm: float | None = None       # atm (ppmv -> atm), instead of elevation
     soluble_fraction: str | float | None = None  # 0-1, None = 1
+    cover: str | float | None = None            # insoluble cover thickness, m (or a 0/1 mask); None = no cover input
+    cover_min_thickness_m: float = 0.0          # m; 0 = any thickness > 0 counts as cover
     rocks: str | None = None
     grid_like: str | None = None
     grid_crs: str | None = None
@@ -165,7 +174,7 @@ class MapSettings:
     workers: int = dataclasses.field(default_factory=available_cores)  # threads
     block_size: int = 512                       # cells
     gdal_cache_mb: int = 128                    # MB of GDAL block cache (streaming needs few blocks; bench_map.py)
-    layers: tuple = tuple(LAYERS)
+    layers: tuple | None = None                 # None: the default layers (+ covered_karst with a cover)
     layout: str = "auto"
     compress: str = "deflate"
     lithology_resampling: str = "auto"
@@ -177,6 +186,9 @@ class MapSettings:
     job_file: str | None = None
 
     def __post_init__(self):
+        if self.layers is None:
+            object.__setattr__(self, "layers", default_layers(
+                role for role in INPUT_ROLES if getattr(self, role, None) is not None))
         check_settings(self)
 
     def replace(self, **changes) -> "MapSettings":
@@ -228,9 +240,9 @@ def check_choice(name: str, value, what: str | None = None) -> None:
     what = what or _CHOICE_WHAT.get(name, name.replace("_", " "))
     if name == "layers":
         if not value:
-            raise InputError(f"{what}: no output layers selected; choose from {', '.join(LAYERS)}")
+            raise InputError(f"{what}: no output layers selected; choose from {', '.join(ALL_LAYERS)}")
         for layer in value:
-            _choice(layer, tuple(LAYERS), f"{what}: layer" if what != "layers" else "layer")
+            _choice(layer, tuple(ALL_LAYERS), f"{what}: layer" if what != "layers" else "layer")
         return
     if name == "lithology_resampling" and value in REFUSED_LITHOLOGY_RESAMPLING:
         raise InputError(
@@ -245,6 +257,15 @@ def check_settings(s: MapSettings) -> None:
     where = f"job file {s.job_file}: " if s.job_file else ""
     for name in ("chemistry", "pco2_units", "negative_runoff", "layers"):
         check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
+    for layer in s.layers:
+        needs = OUTPUT_LAYERS[layer].needs
+        if needs is not None and getattr(s, needs) is None:
+            raise InputError(f"{where}layer {layer} needs a {needs} input; give --{needs.replace('_', '-')} "
+                             f"(or {needs} in the job file's [inputs]) or drop {layer} from the layers")
+    try:
+        check_min_thickness(s.cover_min_thickness_m)
+    except InputError as exc:
+        raise InputError(f"{where}{exc}") from None
     if s.temperature is None:
         raise InputError(f"{where}no temperature given; give --temperature as a raster (degrees C) or a number")
     if s.runoff is None and (s.precipitation is None or s.aet is None):
@@ -437,6 +458,10 @@ def _coerce(name: str, value, base: Path | None, where: str):
                 raise ValueError
             return int(value)
         if name == "air_pressure_atm":
+            return float(value)
+        if name == "cover_min_thickness_m":
+            if isinstance(value, bool):
+                raise ValueError
             return float(value)
         if name == "overwrite":
             if not isinstance(value, bool):

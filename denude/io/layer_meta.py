@@ -7,6 +7,7 @@ more than the rock table and the colour table of the lithology input.
 
 from __future__ import annotations
 
+from denude.core.cover import COVER_CLASS_NAMES
 from denude.core.hazard import DEFAULT_COLOURS
 from denude.io.styles import category_list, input_colour_table, lithology_colours, smallest_code_type
 from denude.registry import INT32_NODATA, OUTPUT_LAYERS
@@ -26,6 +27,9 @@ def layer_sources(layer: str, chemistry: str, pco2_from_aet: bool) -> str:
         return "the lithology input and the rock table of the run (rocks.csv)"
     if layer == "soluble_fraction":
         return "the soluble-area fraction input (1 where none was given) and the rock table (0 on insoluble rock)"
+    if layer == "covered_karst":
+        return ("the cover input (insoluble cover thickness, m, or a 0/1 mask), the soluble-area fraction and "
+                "the rock table; a screening flag, not a site investigation")
     cited = [WHITE, PLUMMER]
     if chemistry == "speciated":
         cited.append(SPECIATION)
@@ -45,6 +49,8 @@ def layer_extras(layer: str, settings, rocks=None) -> dict:
     }
     if layer == "hazard":
         out["categories"] = tuple(settings.hazard_names)
+    elif layer == "covered_karst":
+        out["categories"] = COVER_CLASS_NAMES
     elif layer == "lithology" and rocks is not None:
         codes = [r.code for r in rocks]
         dtype, nodata = smallest_code_type(codes)

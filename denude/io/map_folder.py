@@ -13,7 +13,7 @@ from denude.core.hazard import DEFAULT_CLASS_NAMES
 from denude.errors import GridError, InputError
 from denude.io.grid import Grid
 from denude.io.rasters import check_georeferenced
-from denude.registry import OUTPUT_LAYERS, ZONE_LAYERS
+from denude.registry import OPTIONAL_ZONE_LAYERS, OUTPUT_LAYERS, ZONE_LAYERS
 
 #: Raster files of the output folder read by a zone summary (DEVELOPERS.md contract).
 RATE_TIF = OUTPUT_LAYERS["denudation"].file
@@ -21,8 +21,11 @@ CO2_TIF = OUTPUT_LAYERS["co2_drawdown"].file
 HAZARD_TIF = OUTPUT_LAYERS["hazard"].file
 LITHOLOGY_TIF = OUTPUT_LAYERS["lithology"].file
 SOLUBLE_TIF = OUTPUT_LAYERS["soluble_fraction"].file
+COVER_TIF = OUTPUT_LAYERS["covered_karst"].file
 ROCKS_CSV = "rocks.csv"
 REQUIRED_FILES = tuple(OUTPUT_LAYERS[name].file for name in ZONE_LAYERS) + (ROCKS_CSV,)
+#: Rasters a zone summary reads when the folder has them (written only with their input).
+OPTIONAL_FILES = tuple(OUTPUT_LAYERS[name].file for name in OPTIONAL_ZONE_LAYERS)
 
 
 def output_file(outdir: Path, name: str) -> Path:
@@ -35,7 +38,8 @@ def output_file(outdir: Path, name: str) -> Path:
 
 
 def open_map_folder(outdir: Path):
-    """Open the rasters of an output folder: (name -> dataset, their common Grid)."""
+    """Open the rasters of an output folder: (name -> dataset, their common Grid). The
+    optional layers (``OPTIONAL_FILES``, e.g. ``covered_karst.tif``) are opened when present."""
     missing = [name for name in REQUIRED_FILES if not output_file(outdir, name).is_file()]
     if not outdir.is_dir():
         raise InputError(f"{outdir}: not a folder; give the output folder of 'denude map'")
@@ -43,7 +47,8 @@ def open_map_folder(outdir: Path):
         raise InputError(f"{outdir}: missing {', '.join(missing)}; give the complete output folder of 'denude map' or 'denude batch'")
     datasets = {}
     try:
-        for name in REQUIRED_FILES[:-1]:
+        present = tuple(name for name in OPTIONAL_FILES if output_file(outdir, name).is_file())
+        for name in REQUIRED_FILES[:-1] + present:
             try:
                 datasets[name] = rasterio.open(output_file(outdir, name))
             except rasterio.errors.RasterioIOError as exc:

@@ -24,6 +24,7 @@ from xml.sax.saxutils import escape, quoteattr
 
 import numpy as np
 
+from denude.core.cover import COVER_CLASS_NAMES, COVER_COLOURS
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, DEFAULT_COLOURS
 
 #: Smallest integer types for lithology codes, with the nodata value each keeps free.
@@ -445,6 +446,11 @@ def write_raster_styles(folder, hazard_breaks, hazard_names, rocks=None, litholo
         (folder / "hazard_class.sld").write_text(
             class_raster_sld("hazard_class", "Dissolution hazard class", names, colours), encoding="utf-8")
         written.append("hazard_class.sld")
+    if "covered_karst" in layers:
+        (folder / "covered_karst.sld").write_text(
+            class_raster_sld("covered_karst", "Soluble bedrock exposed or under cover", list(COVER_CLASS_NAMES),
+                             COVER_COLOURS), encoding="utf-8")
+        written.append("covered_karst.sld")
     if "lithology" in layers and rocks is not None:
         by_code = {r.code: r.name for r in rocks}
         colour_of = lithology_colours_by_code or lithology_colours(rocks, None)

@@ -41,6 +41,7 @@ COLUMN_UNITS = {
     "sinkhole_density_per_km2": "1/km2", "sinkhole_mean_rate_mm_per_kyr": "mm/kyr",
     "sinkhole_rate_ratio": "1", "denudation_mm_per_kyr": "mm/kyr",
     "hazard_class": "class index (255 nodata)",
+    "covered_soluble_area_km2": "km2", "exposed_soluble_area_km2": "km2", "covered_soluble_share": "1",
 }
 
 
@@ -81,6 +82,12 @@ def summary_method(area_method: str, class_names) -> dict:
         "rock_volume": "sum of rate [mm/kyr] x covered area [km2]; 1 mm/kyr over 1 km2 = 1 m3/yr",
         "rock_mass": "rock volume x bulk density of the cell's rock type (rocks.csv, g/cm3 = t/m3)",
         "sinkholes": "rate, hazard class and rock of the cell holding each point; a point counts in every zone it intersects",
+        "covered_karst": (
+            "only when the map folder has covered_karst.tif: covered_soluble_area_km2 and exposed_soluble_area_km2 "
+            "sum coverage x cell area x soluble-area fraction over cells of class 2 (soluble bedrock under "
+            "insoluble cover) and class 1 (exposed); covered_soluble_share = covered / (covered + exposed), "
+            "soluble cells of unknown cover in neither; a screening flag of the setting of cover-collapse "
+            "sinkholes, not a site investigation; the rates do not depend on cover"),
         "hazard_classes": class_names,
         "hazard_labels": ("hazard_dominant_name: the class of largest area; hazard_highest_name: the highest "
                           "class covering at least highest_class_min_share of area_km2; hazard_max_name "
