@@ -47,3 +47,7 @@ class CoverageWarning(DenudeWarning):
 
 class MosaicOverlapWarning(DenudeWarning):
     """Tiles of a mosaic input overlap; the later tile in mosaic order fills the overlap."""
+
+
+class GeometryRepairWarning(DenudeWarning):
+    """Invalid polygons (e.g. self-intersecting) were repaired with shapely.make_valid."""

@@ -41,7 +41,7 @@ def handle_user_errors(func: F) -> F:
                 typer.echo(f"denude: error: {one_line(exc)}", err=True)
                 raise typer.Exit(code=1) from None
             finally:
-                for item in caught:
+                for item in list(caught):   # a copy: showwarning appends to ``caught`` here
                     if issubclass(item.category, DenudeWarning):
                         typer.echo(f"denude: warning: {one_line(item.message)}", err=True)
                     else:
