@@ -581,6 +581,8 @@ def run_batch(
         zones = ZoneSpec(str(Path(zones.path).resolve()), zones.layer, zones.id_field)
     if scheduler is None:
         _engines.check_workers(workers)
+    else:  # an unusable scheduler fails here, before the output folder exists
+        _engines.check_scheduler(scheduler)
     note = log or (lambda line: None)
     out = Path(settings.out).resolve()
     layers = tuple(name for name in LAYERS if name in settings.layers)
