@@ -13,6 +13,10 @@ class InputError(DenudeError, ValueError):
     """An input file or value is missing, unreadable or implausible."""
 
 
+class RasterReadError(InputError):
+    """The cells of an input raster cannot be read (truncated file, corrupt or missing tile)."""
+
+
 class RockTableError(InputError):
     """The rock table (built-in or CSV) is invalid or lacks a code."""
 

@@ -33,7 +33,7 @@ from typing import Callable
 import numpy as np
 
 import denude
-from denude.errors import DenudeError, InputError, OutputError
+from denude.errors import DenudeError, InputError, OutputError, RasterReadError
 from denude.execution import engines as _engines
 from denude.execution.manifest import (
     MANIFEST_NAME, InputStamps, Manifest, job_key, tile_input_sha256, verify_outputs,
@@ -401,6 +401,8 @@ def _preflight(settings: MapSettings):
             continue
         try:
             lo, hi, n = value_range(path, role)
+        except RasterReadError:  # unreadable parts (a corrupt mosaic tile): the tiles over them report it
+            continue
         except DenudeError:
             raise
         except Exception:  # unreadable parts: the tiles touching them report it
@@ -645,12 +647,13 @@ def run_batch(
         known = {t.id for t in tiles}
         for stale_id in [i for i in manifest.tiles if i not in known]:
             del manifest.tiles[stale_id]
-        to_run, skipped, corrupt = [], 0, []
+        to_run, skipped, corrupt, changed = [], 0, [], 0
         for t in tiles:
             rec = manifest.tiles.get(t.id)
             state = rec.get("state") if rec else None
             if retry_failed and state != "failed":
                 continue
+            changed += state == "done" and rec.get("input_sha256") != input_hash[t.id]
             if state == "done" and rec.get("input_sha256") == input_hash[t.id]:
                 reason = verify_outputs(tiles_dir / t.id, rec.get("outputs") or {})
                 if reason is None:
@@ -661,6 +664,8 @@ def run_batch(
             to_run.append(t)
             manifest.tiles[t.id] = {"window": t.as_list(), "state": "pending", "input_sha256": input_hash[t.id],
                                     "attempts": 0, "error": None, "outputs": {}, "counts": {}}
+        if changed:
+            note(f"{changed} of {len(tiles)} tiles recomputed: their inputs changed since the last run (content checksums)")
         manifest.save()
 
         failed: dict = {}

@@ -32,7 +32,7 @@ from rasterio.vrt import WarpedVRT
 from rasterio.warp import transform_bounds
 from rasterio.windows import Window
 
-from denude.errors import GridError, InputError, OutputError
+from denude.errors import GridError, InputError, OutputError, RasterReadError
 from denude.io.grid import Grid
 from denude.io.mosaic import is_virtual_path
 from denude.registry import INT32_NODATA
@@ -133,10 +133,10 @@ def _gdal_reason(exc: BaseException) -> str:
     return (texts[0] if texts else "read failed")[:160]
 
 
-def read_error(path, role: str, exc: BaseException, where: str = "") -> InputError:
+def read_error(path, role: str, exc: BaseException, where: str = "") -> RasterReadError:
     """A one-line InputError for a raster whose data cannot be read (truncated file, corrupt
     or missing tile, unreachable virtual path), naming the file and GDAL's reason."""
-    return InputError(
+    return RasterReadError(
         f"{role} raster {path} cannot be read{where} ({_gdal_reason(exc)}); the file is truncated or "
         "corrupt: copy or export it again (gdalinfo -checksum shows which blocks fail)"
     )
