@@ -662,8 +662,12 @@ class RasterWriter:
         self._thread.join()
         if self._error is not None:
             error, self._error = self._error, None
-            if isinstance(error, RasterioIOError):
-                raise OutputError(f"{self.path}: writing failed ({error}); check free disk space") from None
+            if isinstance(error, OSError):   # RasterioIOError is one; ENOSPC from a plain write too
+                reason = " ".join(str(error).split())[:160] or type(error).__name__
+                raise OutputError(
+                    f"{self.path.name}: writing into {self.path.parent} failed ({reason}); check free disk space "
+                    "(e.g. df -h) and that the folder is writable"
+                ) from None
             raise error
         return self.path
 

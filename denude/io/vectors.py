@@ -166,6 +166,7 @@ def read_polygons(path, layer=None, id_field=None, target_crs=None, what="zone")
     if repaired:
         fixed[invalid] = shapely.make_valid(geoms[invalid])
         first = frame[id_field].to_numpy()[np.flatnonzero(invalid)[0]]
+        first = first.item() if hasattr(first, "item") else first
         reason = shapely.is_valid_reason(geoms[np.flatnonzero(invalid)[0]])
         warnings.warn(GeometryRepairWarning(
             f"{path}: layer {layer!r}: {repaired} invalid {what} polygon(s) repaired with shapely.make_valid "
