@@ -13,6 +13,10 @@ class InputError(DenudeError, ValueError):
     """An input file or value is missing, unreadable or implausible."""
 
 
+class RasterReadError(InputError):
+    """The cells of an input raster cannot be read (truncated file, corrupt or missing tile)."""
+
+
 class RockTableError(InputError):
     """The rock table (built-in or CSV) is invalid or lacks a code."""
 
@@ -64,3 +68,7 @@ class CoverageWarning(DenudeWarning):
 
 class MosaicOverlapWarning(DenudeWarning):
     """Tiles of a mosaic input overlap; the later tile in mosaic order fills the overlap."""
+
+
+class GeometryRepairWarning(DenudeWarning):
+    """Invalid polygons (e.g. self-intersecting) were repaired with shapely.make_valid."""

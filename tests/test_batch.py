@@ -211,6 +211,11 @@ def test_changed_input_redoes_only_the_tiles_it_touches(region, tmp_path):
     target = folder / "runoff_00.tif"
     os.utime(target, ns=(target.stat().st_atime_ns, target.stat().st_mtime_ns + 10**9))
     summary = run_batch(settings_for(paths, out), TILE, workers=0)
+    assert summary.tiles_run == 0 and summary.tiles_skipped == 6       # a new time alone: same content
+    with rasterio.open(target, "r+") as ds:                              # new values, same size
+        values = ds.read(1)
+        ds.write(np.where(values == ds.nodata, values, values + 1.0), 1)
+    summary = run_batch(settings_for(paths, out), TILE, workers=0)
     assert summary.tiles_run == 2 and summary.tiles_skipped == 4
 
 

@@ -45,7 +45,7 @@ def handle_user_errors(func: F) -> F:
                 typer.echo(f"denude: error: {one_line(exc)}", err=True)
                 raise typer.Exit(code=1) from None
             finally:
-                for item in caught:
+                for item in list(caught):   # a copy: showwarning appends to ``caught`` here
                     if issubclass(item.category, DenudeWarning):
                         notes.append(one_line(item.message))
                         typer.echo(f"denude: warning: {notes[-1]}", err=True)

@@ -42,6 +42,19 @@ class SiteResult:
         return asdict(self)
 
 
+def check_site_runoff(runoff_mm_per_yr) -> float:
+    """The runoff of one site [mm/yr] if it is finite and >= 0; else a one-line InputError."""
+    q = float(runoff_mm_per_yr)
+    if not np.isfinite(q):
+        raise InputError(f"runoff {q!r} mm/yr is not a finite number; give the site's runoff in mm/yr (e.g. --runoff 400)")
+    if q < 0.0:
+        raise InputError(
+            f"runoff {q:g} mm/yr is negative; give runoff >= 0 mm/yr (precipitation minus actual "
+            "evapotranspiration; 0 means no dissolution)"
+        )
+    return q
+
+
 def site_rates(
     rock: RockType,
     temperature_c: float,
@@ -53,9 +66,11 @@ def site_rates(
     """Maximum denudation, mineral flux and CO2 drawdown at one site.
 
     temperature_c [degrees C], pco2_atm [atm], runoff_mm_per_yr [mm/yr], soluble_fraction [0-1]
-    (share of the site's area that is soluble rock). Out-of-range inputs give NaN (with a
-    warning from the core).
+    (share of the site's area that is soluble rock). Out-of-range temperature or PCO2 give
+    NaN (with a warning from the core). Negative or non-finite runoff is an InputError: at one
+    site it is almost always a sign error or wrong units, never "no dissolution".
     """
+    check_site_runoff(runoff_mm_per_yr)
     q = float(effective_runoff_mm_per_yr(runoff_mm_per_yr))
     if rock.mineral == "insoluble":
         load = 0.0

@@ -247,11 +247,13 @@ class BatchJob:
         known = {t.id for t in self.tiles}
         for stale_id in [i for i in manifest.tiles if i not in known]:
             del manifest.tiles[stale_id]
+        changed = 0
         for t in self.tiles:
             rec = manifest.tiles.get(t.id)
             state = rec.get("state") if rec else None
             if self.retry_failed and state != "failed":
                 continue
+            changed += state == "done" and rec.get("input_sha256") != input_hash[t.id]
             if state == "done" and rec.get("input_sha256") == input_hash[t.id]:
                 reason = verify_outputs(self.tiles_dir / t.id, rec.get("outputs") or {})
                 if reason is None:
@@ -262,6 +264,9 @@ class BatchJob:
             self.to_run.append(t)
             manifest.tiles[t.id] = {"window": t.as_list(), "state": "pending", "input_sha256": input_hash[t.id],
                                     "attempts": 0, "error": None, "outputs": {}, "counts": {}}
+        if changed:
+            self.note(f"{changed} of {len(self.tiles)} tiles recomputed: their inputs changed since the last run "
+                      "(content checksums)")
         manifest.save()
 
     def _tile_input_hashes(self) -> dict:
@@ -402,6 +407,8 @@ def run_batch(
     zones = _check_zones(zones, settings)
     if scheduler is None:
         _engines.check_workers(workers)
+    else:  # an unusable scheduler fails here, before the output folder exists
+        _engines.check_scheduler(scheduler)
     job = BatchJob(settings, size, zones, workers, scheduler, retries, retry_failed, merge, progress,
                    log or (lambda line: None))
     _check_inputs_outside(settings, job.out, zones)

@@ -16,7 +16,11 @@ from __future__ import annotations
 import concurrent.futures as cf
 import multiprocessing
 import os
+import socket
 import sys
+import threading
+import time
+from urllib.parse import urlsplit
 
 from denude.errors import EngineError  # noqa: F401  (defined in errors.py; re-exported here)
 
@@ -51,8 +55,54 @@ def limit_threads(threads: int = 1) -> int | None:
         return None
 
 
-def _init_worker() -> None:
+#: Linux prctl option: the signal a process gets when its parent dies (linux/prctl.h).
+PR_SET_PDEATHSIG = 1
+#: Seconds between the worker's checks that the batch driver is still alive.
+WATCHDOG_INTERVAL_S = 1.0
+
+
+def exit_with_parent(driver_pid: int | None = None, interval_s: float = WATCHDOG_INTERVAL_S) -> None:
+    """Make this (worker) process end when the process that started the batch ends.
+
+    Two guards: on Linux ``prctl(PR_SET_PDEATHSIG, SIGKILL)`` (the kernel kills this process
+    when its parent exits; with the 'forkserver' start method the parent is the fork server,
+    which itself exits when the driver's end of its pipe closes), and a daemon thread that
+    checks every ``interval_s`` seconds that ``driver_pid`` still exists and otherwise ends
+    this process with ``os._exit`` (any platform, and whatever process is the parent)."""
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+            import signal
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+        except Exception:  # pragma: no cover - no libc prctl: the watchdog still runs
+            pass
+    if driver_pid is None:
+        return
+
+    def watch():
+        while True:
+            time.sleep(interval_s)
+            if not _process_alive(driver_pid) or os.getppid() == 1:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="denude-driver-watchdog", daemon=True).start()
+
+
+def _process_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # pragma: no cover - exists, owned by someone else
+        return True
+    return True
+
+
+def _init_worker(driver_pid: int | None = None) -> None:
     limit_threads(1)
+    exit_with_parent(driver_pid)
 
 
 class _Call:
@@ -128,7 +178,8 @@ class LocalPoolEngine:
         return self
 
     def _start(self):
-        self.pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=_context(), initializer=_init_worker)
+        self.pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=_context(), initializer=_init_worker,
+                                           initargs=(os.getpid(),))
 
     def __exit__(self, *exc):
         if self.pool is not None:
@@ -159,12 +210,105 @@ class LocalPoolEngine:
             return False, exc
 
 
+#: Seconds allowed for the TCP connection to a scheduler, for its greeting, and for the Dask
+#: client's own connection after the probe (at most about 12 s in all, inside the 15 s promised).
+PROBE_CONNECT_S = 4.0
+PROBE_GREETING_S = 3.0
+CLIENT_CONNECT_S = 5.0
+#: Address schemes a scheduler address may use.
+SCHEDULER_SCHEMES = ("tcp", "tls")
+#: Largest first message a Dask scheduler plausibly sends (its handshake), bytes.
+MAX_GREETING_BYTES = 2**24
+
+
+def parse_scheduler_address(address: str) -> tuple[str, str, int]:
+    """(scheme, host, port) of a scheduler address ``tcp://HOST:PORT`` (``HOST:PORT`` means
+    tcp); anything else is a one-line EngineError naming the address."""
+    text = str(address).strip()
+    fix = "give tcp://HOST:PORT, e.g. tcp://127.0.0.1:8786 (the port `dask scheduler` prints)"
+    if not text or any(ch.isspace() for ch in text):
+        raise EngineError(f"--scheduler {address!r} is not a scheduler address; {fix}")
+    if "://" not in text:
+        text = "tcp://" + text
+    try:
+        parts = urlsplit(text)
+        port = parts.port
+    except ValueError:
+        raise EngineError(f"--scheduler {address!r} has no valid port (1-65535); {fix}") from None
+    if parts.scheme not in SCHEDULER_SCHEMES:
+        raise EngineError(f"--scheduler {address!r}: protocol {parts.scheme!r} is not one of {', '.join(SCHEDULER_SCHEMES)}; {fix}")
+    if not parts.hostname:
+        raise EngineError(f"--scheduler {address!r} names no host; {fix}")
+    if port is None or not 0 < port < 65536:
+        raise EngineError(f"--scheduler {address!r} names no port; {fix}")
+    if parts.path not in ("", "/") or parts.query or parts.fragment:
+        raise EngineError(f"--scheduler {address!r} has a path or query after the port; {fix}")
+    return parts.scheme, parts.hostname, port
+
+
+def probe_scheduler(address, connect_s: float = PROBE_CONNECT_S, greeting_s: float = PROBE_GREETING_S) -> None:
+    """Check, before anything is written, that ``address`` is a Dask scheduler: the address
+    parses, the host resolves, the port accepts a TCP connection within ``connect_s`` seconds,
+    and (tcp://) the peer sends a Dask greeting within ``greeting_s`` seconds (a Dask scheduler
+    writes its handshake first). An HTTP server (e.g. the dashboard port), a port that accepts
+    and never answers, a refused or unreachable port: a one-line EngineError naming the address.
+    A cluster object (``.scheduler_address``) is probed at that address."""
+    if hasattr(address, "scheduler_address"):
+        address = address.scheduler_address
+    scheme, host, port = parse_scheduler_address(address)
+    where = f"Dask scheduler {address}"
+    start = "start one with `dask scheduler` or check the address (tcp://HOST:PORT, default port 8786)"
+    try:
+        sock = socket.create_connection((host, port), timeout=connect_s)
+    except socket.gaierror:
+        raise EngineError(f"cannot reach the {where}: host {host!r} is not known; check the host name") from None
+    except ConnectionRefusedError:
+        raise EngineError(f"cannot reach the {where}: connection refused (nothing listens on port {port}); {start}") from None
+    except (socket.timeout, TimeoutError):
+        raise EngineError(f"cannot reach the {where}: no answer within {connect_s:g} s (host down or a firewall); {start}") from None
+    except OSError as exc:
+        raise EngineError(f"cannot reach the {where}: {exc.strerror or exc}; {start}") from None
+    with sock:
+        if scheme != "tcp":   # TLS: the client speaks first; the Dask client checks the rest
+            return
+        sock.settimeout(greeting_s)
+        try:
+            head = sock.recv(8)
+        except (socket.timeout, TimeoutError):
+            head = None
+        except OSError as exc:
+            raise EngineError(f"the {where} dropped the connection ({exc.strerror or exc}); {start}") from None
+        if head is None:
+            raise EngineError(f"{address} accepts connections but is not a Dask scheduler ({_silent_peer(sock)}); {start}")
+        if head == b"":
+            raise EngineError(f"{address} closed the connection without a Dask greeting; it is not a Dask scheduler; {start}")
+        if head.startswith(b"HTTP/") or head[:1] == b"<":
+            raise EngineError(f"{address} is a web server (answers HTTP), not the Dask scheduler port; {start}")
+        size = int.from_bytes(head.ljust(8, b"\0"), "little")
+        if len(head) == 8 and not 0 < size <= MAX_GREETING_BYTES:
+            raise EngineError(f"{address} answers, but not with a Dask greeting; it is not a Dask scheduler; {start}")
+
+
+def _silent_peer(sock) -> str:
+    """What a peer that sends nothing is: an HTTP server if it answers a request for '/'."""
+    try:
+        sock.settimeout(1.0)
+        sock.sendall(b"GET / HTTP/1.0\r\n\r\n")
+        reply = sock.recv(5)
+    except OSError:
+        reply = b""
+    if reply.startswith(b"HTTP"):
+        return "it answers HTTP: the dashboard port? the scheduler port is usually 8786"
+    return f"no greeting within {PROBE_GREETING_S:g} s"
+
+
+
 class DaskEngine:
     """Tasks submitted to an existing Dask distributed scheduler at ``address``."""
 
     name = "dask"
 
-    def __init__(self, address, connect_timeout_s: float = 10.0):
+    def __init__(self, address, connect_timeout_s: float = CLIENT_CONNECT_S):
         self.address = address
         self.connect_timeout_s = connect_timeout_s
         self.client = None
@@ -180,10 +324,11 @@ class DaskEngine:
             target = self.address
             self.address = target.scheduler_address
         else:
-            target = str(self.address)
+            target = str(self.address).strip()
+            probe_scheduler(target)
         try:
             self.client = Client(target, timeout=self.connect_timeout_s, set_as_default=False)
-        except (OSError, TimeoutError, ValueError) as exc:
+        except Exception as exc:  # OSError, TimeoutError, ValueError, CommClosedError, ...
             raise EngineError(
                 f"cannot connect to the Dask scheduler {self.address} ({' '.join(str(exc).split())[:160]}); "
                 "start one with `dask scheduler` or check the address (tcp://HOST:PORT)"
@@ -230,6 +375,14 @@ class DaskEngine:
             return False, exc
         finally:
             handle.release()
+
+
+def check_scheduler(scheduler) -> None:
+    """Fail fast (before the batch writes anything) when ``scheduler`` is given and is not a
+    reachable Dask scheduler; see ``probe_scheduler``. None or "" (no scheduler): nothing."""
+    if scheduler is None or scheduler == "":
+        return
+    probe_scheduler(scheduler)
 
 
 def make_engine(workers=None, scheduler=None):

@@ -13,7 +13,7 @@ Layout (format ``denude-batch-manifest/1``)::
         "r000_c000": {
           "window": [col_off, row_off, width, height],      # cells of the target grid
           "state": "pending" | "done" | "failed",
-          "input_sha256": "<sha256 of job key, window and the input files' size + mtime>",
+          "input_sha256": "<sha256 of job key, window and the input files' content stamps>",
           "attempts": 1,                                     # attempts in the last run
           "error": null | "one-line message",
           "outputs": {"denudation_mm_per_kyr.tif": {"sha256": "...", "size_bytes": 123}, ...},
@@ -24,7 +24,11 @@ Layout (format ``denude-batch-manifest/1``)::
     }
 
 A tile is skipped on a re-run when its state is ``done``, its ``input_sha256`` is the one the
-job computes now, and every output file exists with the recorded size and SHA-256. The file
+job computes now, and every output file exists with the recorded size and SHA-256. Input
+stamps are content, not file times: the SHA-256 of every local input (and of every local
+source of a VRT input, and of the local archive behind a ``/vsizip/`` path); for remote
+virtual paths (``/vsicurl/``, ``/vsis3/`` ...) the ETag, size and time GDAL reports
+(``content_stamp``). A file rewritten with the same size and time is therefore seen. The file
 is rewritten atomically (temporary file, fsync, rename) by the batch driver only.
 """
 
@@ -75,15 +79,133 @@ def job_key(settings_dict: dict, tile_size: int, extra: dict | None = None) -> s
 
 
 # --------------------------------------------------------------------------- input stamps
-def file_stamp(path: str) -> list:
-    """[path, size in bytes, mtime in ns] of a file (virtual paths: [path, None, None])."""
-    if is_virtual_path(path):
-        return [path, None, None]
+#: Archive handlers whose path holds a local archive file (its content stamps the member).
+ARCHIVE_PREFIXES = ("/vsizip/", "/vsitar/", "/vsigzip/", "/vsi7z/", "/vsirar/")
+#: HTTP headers GDAL reports for a remote file that identify its content.
+REMOTE_HEADERS = ("etag", "content-length", "last-modified", "x-goog-hash", "content-md5")
+
+_SHA_CACHE: dict = {}
+
+
+def _local_sha256(path: str) -> str | None:
+    """SHA-256 of a local file, cached in this process by (path, inode, size, mtime, ctime):
+    a rewrite changes ctime even when size and mtime are put back."""
+    from denude.io.rasters import file_sha256
+
     try:
         st = os.stat(path)
     except OSError:
-        return [path, None, None]
-    return [path, st.st_size, st.st_mtime_ns]
+        return None
+    key = (os.path.abspath(path), st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+    if key not in _SHA_CACHE:
+        try:
+            _SHA_CACHE[key] = file_sha256(path)
+        except OSError:
+            return None
+    return _SHA_CACHE[key]
+
+
+def archive_of(path: str) -> tuple[str, str] | None:
+    """(local archive file, member) of a ``/vsizip/``-style path, or None (not an archive
+    path, or the archive is itself remote). Both ``/vsizip/{/a/b.zip}/m`` and ``/vsizip//a/b.zip/m``."""
+    text = str(path)
+    prefix = next((p for p in ARCHIVE_PREFIXES if text.startswith(p)), None)
+    if prefix is None:
+        return None
+    rest = text[len(prefix):]
+    if rest.startswith("{") and "}" in rest:
+        archive, member = rest[1:].split("}", 1)
+        return (archive, member.lstrip("/")) if not is_virtual_path(archive) else None
+    if is_virtual_path(rest):
+        return None
+    parts = Path(rest).parts
+    for i in range(1, len(parts) + 1):
+        candidate = str(Path(*parts[:i]))
+        if os.path.isfile(candidate):
+            return candidate, "/".join(parts[i:])
+    return None
+
+
+def remote_headers(path: str) -> dict | None:
+    """Content-identifying HTTP headers GDAL reports for a remote virtual path (``ETag``,
+    ``Content-Length``, ``Last-Modified`` ...), lower-case keys; None when GDAL gives none.
+    Calls GDAL's ``VSIGetFileMetadata(path, "HEADERS")`` through ctypes on the GDAL library
+    rasterio loaded (rasterio has no Python face for it)."""
+    lib = _gdal_library()
+    if lib is None:
+        return None
+    try:
+        from rasterio.env import Env
+
+        with Env():
+            result = lib.VSIGetFileMetadata(str(path).encode("utf-8"), b"HEADERS", None)
+            if not result:
+                return None
+            items, i = {}, 0
+            while result[i]:
+                key, _, value = result[i].decode("utf-8", "replace").partition("=")
+                items[key.strip().lower()] = value.strip()
+                i += 1
+            lib.CSLDestroy(result)
+    except Exception:
+        return None
+    found = {k: items[k] for k in REMOTE_HEADERS if k in items}
+    return found or None
+
+
+_GDAL_LIB: list = []
+
+
+def _gdal_library():
+    """The GDAL shared library rasterio uses, through ctypes (None if it cannot be found)."""
+    if _GDAL_LIB:
+        return _GDAL_LIB[0]
+    lib = None
+    try:
+        import ctypes
+        import glob
+
+        import rasterio
+
+        base = Path(rasterio.__file__).resolve().parent
+        candidates = sorted(glob.glob(str(base.parent / "rasterio.libs" / "libgdal*.so*")))
+        if not candidates:
+            import ctypes.util
+
+            name = ctypes.util.find_library("gdal")
+            candidates = [name] if name else []
+        if candidates:
+            lib = ctypes.CDLL(candidates[0])
+            lib.VSIGetFileMetadata.restype = ctypes.POINTER(ctypes.c_char_p)
+            lib.VSIGetFileMetadata.argtypes = [ctypes.c_char_p, ctypes.c_char_p, ctypes.c_void_p]
+            lib.CSLDestroy.argtypes = [ctypes.POINTER(ctypes.c_char_p)]
+    except Exception:
+        lib = None
+    _GDAL_LIB.append(lib)
+    return lib
+
+
+def content_stamp(path: str) -> list:
+    """What identifies one input file's content: ``[path, "sha256", hex]`` for a local file
+    (and for the local archive behind ``/vsizip/...``, with the member name), ``[path,
+    "remote", {etag, content-length, last-modified ...}]`` for a remote virtual path, and
+    ``[path, None, None]`` when nothing can be learnt (missing file; a remote server that
+    reports no headers)."""
+    text = str(path)
+    if is_virtual_path(text):
+        archive = archive_of(text)
+        if archive is not None:
+            digest = _local_sha256(archive[0])
+            return [text, "archive-sha256", None if digest is None else [digest, archive[1]]]
+        headers = remote_headers(text)
+        return [text, "remote", headers] if headers else [text, None, None]
+    digest = _local_sha256(text)
+    return [text, "sha256", digest] if digest is not None else [text, None, None]
+
+
+def file_stamp(path: str) -> list:
+    """The content stamp of one input (see ``content_stamp``)."""
+    return content_stamp(path)
 
 
 def _vrt_layout(path: str):
@@ -117,7 +239,7 @@ def _vrt_layout(path: str):
 
 
 class InputStamps:
-    """Size + mtime stamps of every raster input (and every source of a VRT input), built once
+    """Content stamps of every raster input (and every source of a VRT input), built once
     per run; ``for_bounds`` gives the stamps relevant to one tile's extent."""
 
     def __init__(self, paths: dict, grid_crs_wkt: str):

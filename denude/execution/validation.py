@@ -20,7 +20,7 @@ import numpy as np
 
 from denude.core.dissolution import warn_out_of_range
 from denude.core.rocks import RockTable
-from denude.errors import CoverageWarning, DenudeError, DenudeWarning, GridError, InputError, OutputError
+from denude.errors import CoverageWarning, DenudeError, DenudeWarning, GridError, InputError, OutputError, RasterReadError
 from denude.execution.plan import JobPlan, gdal_env, load_rocks, raster_roles, requested_resampling, resolve_grid
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings, is_constant
@@ -257,6 +257,10 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
     reader = value_range if values == "decimated" else sample_value_range
     try:
         lo, hi, n = reader(path, role, dataset=ds)
+    except RasterReadError:
+        if not tolerant:
+            raise
+        return item          # a corrupt part (e.g. one mosaic tile): the windows (tiles) over it report it
     except DenudeError:
         raise
     except Exception:

@@ -33,7 +33,7 @@ from rasterio.vrt import WarpedVRT
 from rasterio.warp import transform_bounds
 from rasterio.windows import Window
 
-from denude.errors import GridError, InputError, OutputError
+from denude.errors import GridError, InputError, OutputError, RasterReadError
 from denude.io.grid import Grid
 from denude.io.mosaic import is_virtual_path
 from denude.io.styles import write_category_names
@@ -123,6 +123,86 @@ def open_raster(path, role: str):
         ) from None
 
 
+def _gdal_reason(exc: BaseException) -> str:
+    """The most telling one-line text of a GDAL read failure (rasterio chains GDAL's own
+    message as the cause of its generic 'Read failed')."""
+    texts = []
+    while exc is not None and len(texts) < 4:
+        text = " ".join(str(exc).split())
+        if text and "See previous exception" not in text:
+            texts.append(text)
+        exc = exc.__cause__ or exc.__context__
+    return (texts[0] if texts else "read failed")[:160]
+
+
+def read_error(path, role: str, exc: BaseException, where: str = "") -> RasterReadError:
+    """A one-line InputError for a raster whose data cannot be read (truncated file, corrupt
+    or missing tile, unreachable virtual path), naming the file and GDAL's reason."""
+    return RasterReadError(
+        f"{role} raster {path} cannot be read{where} ({_gdal_reason(exc)}); the file is truncated or "
+        "corrupt: copy or export it again (gdalinfo -checksum shows which blocks fail)"
+    )
+
+
+def read_band(ds, path, role: str, **kwargs) -> np.ndarray:
+    """``ds.read(1, **kwargs)``; a GDAL read failure is a one-line InputError naming the file."""
+    try:
+        return ds.read(1, **kwargs)
+    except (RasterioError, OSError) as exc:
+        raise read_error(path, role, exc) from None
+
+
+def dtype_limits(dtype: str) -> tuple[float, float]:
+    """(lowest, highest) value a raster data type can hold (floats: their finite range)."""
+    kind = np.dtype(dtype)
+    if kind.kind in "iu":
+        info = np.iinfo(kind)
+    else:
+        info = np.finfo(kind)
+    return float(info.min), float(info.max)
+
+
+def declared_nodata(ds) -> float | None:
+    """The nodata value band 1 declares. rasterio reports None for a value the data type cannot
+    hold (e.g. -9999 on uint8), so then the value is read from a VRT description of the band
+    (metadata only, in a temporary folder)."""
+    if ds.nodata is not None:
+        return float(ds.nodata)
+    import tempfile
+    import xml.etree.ElementTree as ET
+
+    try:
+        with tempfile.TemporaryDirectory(prefix="denude-nodata-") as tmp:
+            probe = os.path.join(tmp, "probe.vrt")
+            rasterio.shutil.copy(ds, probe, driver="VRT")
+            band = ET.parse(probe).getroot().find("VRTRasterBand")
+            text = None if band is None else band.findtext("NoDataValue")
+    except Exception:  # no VRT description: trust rasterio's answer
+        return None
+    try:
+        return None if text is None else float(text)
+    except ValueError:
+        return None
+
+
+def check_nodata_fits(path, role: str, dtype: str, nodata) -> None:
+    """A declared nodata value the band's data type cannot hold (e.g. -9999 on uint8, or a
+    fraction on integers) is a one-line InputError naming the file and the value: GDAL would
+    otherwise compare cells with a value no cell can have, and real nodata cells pass as data."""
+    if nodata is None or math.isnan(nodata) or np.dtype(dtype).kind not in "iuf":
+        return
+    low, high = dtype_limits(dtype)
+    fits = low <= nodata <= high if math.isfinite(nodata) else np.dtype(dtype).kind == "f"
+    if fits and np.dtype(dtype).kind in "iu" and nodata != round(nodata):
+        fits = False
+    if not fits:
+        raise InputError(
+            f"{role} raster {path} declares nodata {nodata:g}, which its data type {dtype} cannot hold "
+            f"({low:g} to {high:g}); set a nodata value inside that range (e.g. gdal_edit.py -a_nodata "
+            f"{high:g} {Path(str(path)).name}) or none"
+        )
+
+
 def check_georeferenced(ds, what: str, fix_crs: str = "assign one (e.g. gdal_edit.py -a_srs EPSG:xxxx)",
                         fix_rotated: str = "warp it north-up first") -> None:
     """The one rule on an open raster's georeferencing: a CRS and a north-up, unrotated grid.
@@ -139,6 +219,7 @@ def describe_dataset(ds, path, role: str) -> RasterInfo:
     check_georeferenced(ds, f"{role} raster {path}")
     if ds.count < 1:
         raise InputError(f"{role} raster {path} has no bands; give a single-band raster")
+    check_nodata_fits(path, role, ds.dtypes[0], declared_nodata(ds))
     return RasterInfo(
         role=role, path=str(path), crs_wkt=ds.crs.to_wkt(), transform=tuple(ds.transform)[:6],
         width=ds.width, height=ds.height, dtype=ds.dtypes[0],
@@ -356,6 +437,16 @@ class GridReader:
         return self.vrt
 
     def read(self, window: Window) -> np.ndarray:
+        """One window on the target grid; a GDAL read failure of the input (truncated file,
+        corrupt tile, a mosaic tile that cannot be opened) is a one-line InputError naming it."""
+        try:
+            return self._read(window)
+        except (RasterioError, OSError) as exc:
+            info = self.plan.info
+            where = f" in the window at row {int(window.row_off)}, column {int(window.col_off)} of the target grid"
+            raise read_error(info.path, info.role, exc, where) from None
+
+    def _read(self, window: Window) -> np.ndarray:
         plan, grid = self.plan, self.grid
         rows, cols = int(window.height), int(window.width)
         out = np.full((rows, cols), self.nodata, dtype=self.dtype)
@@ -393,7 +484,7 @@ def value_range(path, role: str, max_side: int = 1024, dataset=None) -> tuple[fl
     with _opened(path, role, dataset) as ds:
         step = max(1, math.ceil(max(ds.width, ds.height) / max_side))
         shape = (max(1, ds.height // step), max(1, ds.width // step))
-        data = ds.read(1, out_shape=shape, masked=True, resampling=Resampling.nearest)
+        data = read_band(ds, path, role, out_shape=shape, masked=True, resampling=Resampling.nearest)
         values = np.ma.masked_invalid(data.astype(np.float64)).compressed()
     if values.size == 0:
         return (math.nan, math.nan, 0)
@@ -411,7 +502,7 @@ def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 6
                 h, w = min(side, ds.height), min(side, ds.width)
                 row = (ds.height - h) * i // max(samples_per_side - 1, 1)
                 col = (ds.width - w) * j // max(samples_per_side - 1, 1)
-                data = ds.read(1, window=Window(col, row, w, h), masked=True)
+                data = read_band(ds, path, role, window=Window(col, row, w, h), masked=True)
                 values = np.ma.masked_invalid(data.astype(np.float64)).compressed()
                 if values.size:
                     lo, hi, n = min(lo, float(values.min())), max(hi, float(values.max())), n + values.size
@@ -426,7 +517,7 @@ def unique_codes(path, role: str = "lithology", dataset=None) -> list[int]:
         nodata = ds.nodata
         is_float = not np.issubdtype(np.dtype(ds.dtypes[0]), np.integer)
         for _, window in ds.block_windows(1):
-            vals = np.unique(ds.read(1, window=window))
+            vals = np.unique(read_band(ds, path, role, window=window))
             if nodata is not None:
                 vals = vals[vals != nodata]
             if vals.dtype.kind == "f":
@@ -602,8 +693,12 @@ class RasterWriter:
         self._thread.join()
         if self._error is not None:
             error, self._error = self._error, None
-            if isinstance(error, RasterioIOError):
-                raise OutputError(f"{self.path}: writing failed ({error}); check free disk space") from None
+            if isinstance(error, OSError):   # RasterioIOError is one; ENOSPC from a plain write too
+                reason = " ".join(str(error).split())[:160] or type(error).__name__
+                raise OutputError(
+                    f"{self.path.name}: writing into {self.path.parent} failed ({reason}); check free disk space "
+                    "(e.g. df -h) and that the folder is writable"
+                ) from None
             raise error
         return self.path
 

@@ -7,13 +7,14 @@ file, the value and the fix.
 from __future__ import annotations
 
 import os
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import shapely
 
-from denude.errors import OutputError, ZoneError
+from denude.errors import GeometryRepairWarning, OutputError, ZoneError
 
 #: Name of the id column when the user gives no id field (values: the layer's feature ids).
 DEFAULT_ID_FIELD = "zone_id"
@@ -60,10 +61,17 @@ def _layers(path: Path, what: str) -> list[str]:
 
     if not path.exists():
         raise ZoneError(f"{path}: {what} file not found; give the path of a GeoPackage or other vector file")
+    if path.is_dir() and path.suffix.lower() not in (".gdb",):
+        raise ZoneError(f"{path}: is a folder; give the path of a GeoPackage, Shapefile or GeoJSON {what} file")
+    if path.is_file() and path.stat().st_size == 0:
+        raise ZoneError(f"{path}: the {what} file is empty (0 bytes); give a GeoPackage, Shapefile or GeoJSON with {what} features")
     try:
-        return [str(name) for name in pyogrio.list_layers(path)[:, 0]]
+        with warnings.catch_warnings():      # GDAL's notes on a broken file: the error says enough
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return [str(name) for name in pyogrio.list_layers(path)[:, 0]]
     except Exception as exc:  # pyogrio raises DataSourceError and friends
-        raise ZoneError(f"{path}: not a readable vector file ({' '.join(str(exc).split())}); give a GeoPackage, Shapefile or GeoJSON") from None
+        reason = " ".join(str(exc).split())[:160]
+        raise ZoneError(f"{path}: not a readable vector file ({reason}); give a GeoPackage, Shapefile or GeoJSON") from None
 
 
 def _read_frame(path, layer, what):
@@ -81,9 +89,14 @@ def _read_frame(path, layer, what):
     elif layer not in names:
         raise ZoneError(f"{path}: no layer {layer!r}; choose one of {', '.join(names)}")
     try:
-        frame = geopandas.read_file(path, layer=layer, engine="pyogrio", fid_as_index=True)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            frame = geopandas.read_file(path, layer=layer, engine="pyogrio", fid_as_index=True)
     except Exception as exc:
-        raise ZoneError(f"{path}: layer {layer!r} cannot be read ({' '.join(str(exc).split())})") from None
+        reason = " ".join(str(exc).split())[:160]
+        raise ZoneError(f"{path}: layer {layer!r} cannot be read ({reason}); check the file opens in a GIS, or export it again") from None
+    if not isinstance(frame, geopandas.GeoDataFrame):
+        raise ZoneError(f"{path}: layer {layer!r} has no geometry column (a plain table?); give a layer of {what} features")
     if len(frame) == 0:
         raise ZoneError(f"{path}: layer {layer!r} is empty; give a layer with at least one {what} feature")
     if frame.crs is None:
@@ -152,6 +165,13 @@ def read_polygons(path, layer=None, id_field=None, target_crs=None, what="zone")
     fixed = geoms.copy()
     if repaired:
         fixed[invalid] = shapely.make_valid(geoms[invalid])
+        first = frame[id_field].to_numpy()[np.flatnonzero(invalid)[0]]
+        first = first.item() if hasattr(first, "item") else first
+        reason = shapely.is_valid_reason(geoms[np.flatnonzero(invalid)[0]])
+        warnings.warn(GeometryRepairWarning(
+            f"{path}: layer {layer!r}: {repaired} invalid {what} polygon(s) repaired with shapely.make_valid "
+            f"(first: {id_field} {first!r}, {reason}); check them if the areas matter"
+        ))
     fixed = np.array([_polygonal(g) for g in fixed], dtype=object)
     frame = frame.set_geometry(list(fixed), crs=frame.crs)
     target, source = _to_target(frame, target_crs, path, layer)
