@@ -13,15 +13,18 @@ from dataclasses import dataclass, field
 import numpy as np
 from rasterio.windows import Window
 
-from denude.core.constants import MINERAL_INDEX
+from denude.core.constants import MINERAL_INDEX, TEMPERATURE_MIN_C
 from denude.core.hazard import classify
 from denude.core.kernel import BlockCounts, compute_block
 from denude.core.rates import runoff_from_water_balance_mm_per_yr, zero_negative_runoff_mm_per_yr
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
+from denude.core.units import convert
 from denude.execution.plan import InputReaders, JobPlan, prepare_job
+from denude.execution.validation import value_band
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings, is_constant
 from denude.io.rasters import INT32_NODATA
+from denude.io.units import settings_unit
 
 @dataclass
 class WindowResult:
@@ -35,31 +38,67 @@ class WindowResult:
     unknown_codes: tuple = ()                          # codes not in the rock table
 
 
-def _value(readers: InputReaders, settings: MapSettings, role: str, window: Window, ranges: dict | None = None):
+class _Reads:
+    """What one window's reads collect besides the arrays: value ranges (after unit
+    conversion and the out-of-range policy), cells made nodata per input, the lithology mask."""
+
+    def __init__(self, valid, ranges: dict | None):
+        self.valid = valid
+        self.ranges = ranges
+        self.set_to_nodata: dict = {}
+
+
+def _value(readers: InputReaders, settings: MapSettings, role: str, window: Window, reads: _Reads | None = None):
+    """One input on the window in the run's unit (a float for a constant). Under
+    --out-of-range nodata, cells outside the role's band (or not finite) become NaN and are
+    counted on cells with valid lithology."""
     value = settings.pco2 if role == "pco2" else getattr(settings, role)
     if value is None:
         return None
+    unit = settings_unit(settings, role)[0]
     if is_constant(value):
-        return float(value)
-    data = readers.read(role, window).astype(np.float64)
-    if ranges is not None and np.isfinite(data).any():
-        ranges[role] = (float(np.nanmin(data)), float(np.nanmax(data)))
+        return float(convert(value, unit))
+    data = convert(readers.read(role, window).astype(np.float64), unit)
+    if reads is None:
+        return data
+    if settings.out_of_range == "nodata":
+        band = value_band(role, settings) or (-np.inf, np.inf)
+        with np.errstate(invalid="ignore"):
+            bad = ~np.isnan(data) & ~((data >= band[0]) & (data <= band[1]) & np.isfinite(data))
+        if bad.any():
+            data = np.where(bad, np.nan, data)
+            n = int(np.count_nonzero(bad & reads.valid))
+            if n:
+                reads.set_to_nodata[role] = reads.set_to_nodata.get(role, 0) + n
+    if reads.ranges is not None and (~np.isnan(data)).any():
+        reads.ranges[role] = (float(np.nanmin(data)), float(np.nanmax(data)))
     return data
 
 
-def _pco2_atm(readers, settings: MapSettings, window: Window, aet, ranges=None):
+def _pco2_atm(readers, settings: MapSettings, window: Window, aet, reads=None):
     if settings.pco2_from_aet:
         return pco2_from_aet_atm(aet)
-    raw = _value(readers, settings, "pco2", window, ranges)
-    if settings.pco2_units == "atm":
+    raw = _value(readers, settings, "pco2", window, reads)
+    target = settings_unit(settings, "pco2")[0].target
+    if target == "atm":
         return raw
-    if settings.pco2_units == "log10atm":
+    if target == "log10atm":
         return log10_atm_to_atm(raw)
     if settings.elevation is not None:
-        pressure = air_pressure_atm(_value(readers, settings, "elevation", window, ranges))
+        pressure = air_pressure_atm(_value(readers, settings, "elevation", window, reads))
     else:
         pressure = 1.0 if settings.air_pressure_atm is None else settings.air_pressure_atm
     return ppmv_to_atm(raw, pressure)
+
+
+def take_below_freezing_as_zero(temperature_c, counted):
+    """(temperature with cells below 0 degrees C set to 0 degrees C, cells replaced among
+    ``counted``) [degrees C]: water below freezing taken as water at 0 degrees C. NaN stays NaN."""
+    t = np.asarray(temperature_c, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        cold = t < TEMPERATURE_MIN_C
+    n = int(np.count_nonzero(np.broadcast_to(cold, np.shape(counted)) & np.asarray(counted, bool)))
+    return np.where(cold, TEMPERATURE_MIN_C, t), n
 
 
 def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: InputReaders | None = None,
@@ -73,24 +112,30 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
 
 
 def _read_inputs(plan: JobPlan, window: Window, readers: InputReaders, ranges: dict):
-    """(codes, runoff [mm/yr], PCO2 [atm], temperature [degrees C], soluble fraction, negative
-    runoff cells) of one window; constants stay floats."""
+    """(codes, valid lithology, runoff [mm/yr], PCO2 [atm], temperature [degrees C], soluble
+    fraction, extra counts) of one window, in the run's units; constants stay floats."""
     settings = plan.settings
     codes = readers.read("lithology", window)
     valid = codes != INT32_NODATA
-    aet = _value(readers, settings, "aet", window, ranges)
-    negative = 0
+    reads = _Reads(valid, ranges)
+    aet = _value(readers, settings, "aet", window, reads)
+    extra = BlockCounts()
     if settings.runoff is not None:
-        runoff = _value(readers, settings, "runoff", window, ranges)
+        runoff = _value(readers, settings, "runoff", window, reads)
         if settings.negative_runoff == "zero":
-            runoff, negative = zero_negative_runoff_mm_per_yr(runoff, counted=valid)
+            runoff, extra.negative_runoff = zero_negative_runoff_mm_per_yr(runoff, counted=valid)
     else:
         runoff = runoff_from_water_balance_mm_per_yr(
-            _value(readers, settings, "precipitation", window, ranges), aet)
-    pco2 = _pco2_atm(readers, settings, window, aet, ranges)
-    temperature = _value(readers, settings, "temperature", window, ranges)
-    fraction = _value(readers, settings, "soluble_fraction", window, ranges)
-    return codes, valid, runoff, pco2, temperature, fraction, negative
+            _value(readers, settings, "precipitation", window, reads), aet)
+    pco2 = _pco2_atm(readers, settings, window, aet, reads)
+    temperature = _value(readers, settings, "temperature", window, reads)
+    if settings.below_freezing == "zero":
+        temperature, extra.below_freezing = take_below_freezing_as_zero(temperature, valid)
+        if is_constant(settings.temperature):
+            temperature = float(temperature)
+    fraction = _value(readers, settings, "soluble_fraction", window, reads)
+    extra.set_to_nodata = reads.set_to_nodata
+    return codes, valid, runoff, pco2, temperature, fraction, extra
 
 
 def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = None, layers=None) -> WindowResult:
@@ -100,14 +145,16 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
     readers = readers or InputReaders(plan)
     ranges: dict = {}
     try:
-        codes, valid, runoff, pco2, temperature, fraction, negative = _read_inputs(plan, window, readers, ranges)
+        codes, valid, runoff, pco2, temperature, fraction, extra = _read_inputs(plan, window, readers, ranges)
     finally:
         if own:
             readers.close()
     lookup = plan.rocks.lookup()
     result = compute_block(codes, runoff, pco2, temperature, lookup, settings.chemistry,
                            soluble_fraction=fraction, lithology_valid=valid, warn=False)
-    result.counts.negative_runoff = negative
+    result.counts.negative_runoff = extra.negative_runoff
+    result.counts.below_freezing = extra.below_freezing
+    result.counts.set_to_nodata = extra.set_to_nodata
     wanted = set(layers or settings.layers)
     row = lookup.row_index(codes)
     known = valid & (row >= 0)
