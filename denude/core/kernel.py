@@ -43,6 +43,10 @@ OUTPUT_LAYERS = {
 }
 
 
+#: Counts the kernel never sets (its callers do), left out of ``as_dict`` while zero.
+_CALLER_COUNTS = ("below_freezing", "set_to_nodata")
+
+
 @dataclass
 class BlockCounts:
     """Cell counts of one block; add them up over blocks and tiles."""
@@ -65,8 +69,13 @@ class BlockCounts:
         return BlockCounts(**values, set_to_nodata=merged)
 
     def as_dict(self) -> dict:
-        out = {k: int(getattr(self, k)) for k in self.__dataclass_fields__ if k != "set_to_nodata"}
-        out["set_to_nodata"] = {role: int(n) for role, n in sorted(self.set_to_nodata.items())}
+        """Plain counts; the caller's ``below_freezing`` and ``set_to_nodata`` only when non-zero
+        (a kernel block never has them; run.json always lists them)."""
+        out = {k: int(getattr(self, k)) for k in self.__dataclass_fields__ if k not in _CALLER_COUNTS}
+        if self.below_freezing:
+            out["below_freezing"] = int(self.below_freezing)
+        if any(self.set_to_nodata.values()):
+            out["set_to_nodata"] = {role: int(n) for role, n in sorted(self.set_to_nodata.items())}
         return out
 
     @classmethod

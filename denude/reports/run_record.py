@@ -129,6 +129,9 @@ def run_record(command: str, settings, report, hashes: dict, grid, grid_source: 
         "grid_source": grid_source,
     }
     record.update(extra)
+    if counts:                       # the policy counts are always listed, zero or not
+        counts = {**counts, "below_freezing": counts.get("below_freezing", 0),
+                  "set_to_nodata": counts.get("set_to_nodata", {})}
     record.update({"counts": counts, "outputs": list(outputs), "wall_time_s": round(wall_time_s, 3)})
     return record
 
