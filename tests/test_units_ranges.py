@@ -271,3 +271,20 @@ def test_ppm_declared_in_metadata_takes_the_pressure_rule(map_inputs, make_raste
     ok = np.isfinite(b)
     np.testing.assert_allclose(a[ok], b[ok], rtol=1e-5)      # float32 storage of x 1e6
     assert record(tmp_path / "a")["inputs"]["pco2"]["unit"] == "ppmv"
+
+
+def test_one_temperature_range_in_readme_site_map_and_core():
+    from pathlib import Path
+
+    from denude.core.constants import TEMPERATURE_MAX_C, TEMPERATURE_MIN_C
+    from denude.core.site import check_site_inputs
+    from denude.execution.validation import PLAUSIBLE
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    assert f"valid from {TEMPERATURE_MIN_C:g} to {TEMPERATURE_MAX_C:g} °C" in readme
+    assert f"Cells above {TEMPERATURE_MAX_C:g} °C are nodata" in readme
+    check_site_inputs(85.0, 0.01)                                   # inside: no error
+    with pytest.raises(InputError, match="outside 0-90 degrees C"):
+        check_site_inputs(95.0, 0.01)
+    low, high, _ = PLAUSIBLE["temperature"]                         # the map refuses only wrong units
+    assert low < TEMPERATURE_MIN_C and high > TEMPERATURE_MAX_C
