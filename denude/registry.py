@@ -12,6 +12,7 @@ from denude.core.constants import CHEMISTRY_MODES
 from denude.core.cover import COVER_NODATA
 from denude.core.hazard import HAZARD_NODATA
 from denude.core.soil_co2 import PCO2_UNIT_NAMES
+from denude.core.units import unit_names
 
 #: The PCO2 value that asks for Brook et al. (1983) soil CO2 from actual evapotranspiration.
 PCO2_FROM_AET = "from-aet"
@@ -122,12 +123,23 @@ CHOICES: dict[str, tuple[str, ...]] = {
     "chemistry": tuple(CHEMISTRY_MODES),
     "pco2_units": PCO2_UNIT_NAMES,
     "negative_runoff": ("error", "zero"),
+    "out_of_range": ("error", "nodata"),           # continuous input cells outside their band
+    "below_freezing": ("nodata", "zero"),          # temperature cells below 0 degrees C
+    "runoff_units": unit_names("runoff"),
+    "precipitation_units": unit_names("precipitation"),
+    "aet_units": unit_names("aet"),
+    "temperature_units": unit_names("temperature"),
     "layout": ("auto", "cog", "tiled"),
     "compress": ("deflate", "zstd"),
     "lithology_resampling": ("auto", "nearest", "mode"),
     "continuous_resampling": ("auto", "bilinear", "cubic", "average", "nearest"),
     "unsampled": ("same-rock", "nodata"),          # denude calibrate: zones without samples
 }
+
+#: Settings fields naming the unit of an input -> the role. ``pco2_units`` keeps its own
+#: choices (the pressure rule); the others take any spelling of ``core.units`` for the role.
+UNIT_FIELDS: dict[str, str] = {"runoff_units": "runoff", "precipitation_units": "precipitation",
+                               "aet_units": "aet", "pco2_units": "pco2", "temperature_units": "temperature"}
 
 #: Resampling methods refused for the lithology (they interpolate codes and invent classes).
 REFUSED_LITHOLOGY_RESAMPLING = ("bilinear", "cubic", "average", "cubic_spline", "lanczos")

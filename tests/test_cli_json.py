@@ -129,8 +129,6 @@ def test_same_bad_input_same_message_in_check_and_map(map_inputs, make_raster, t
     assert not (tmp_path / "map").exists()
 
 
-@pytest.mark.xfail(strict=True, reason="batch finds unknown codes per tile, not in the shared preflight "
-                                       "(execution layer, issue 9 item 1)")
 def test_same_bad_input_same_message_in_batch(map_inputs, make_raster, tmp_path):
     messages = _unknown_code_messages(map_inputs, make_raster, tmp_path, ("map", "batch"))
     assert messages["batch"] == messages["map"]

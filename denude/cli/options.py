@@ -28,6 +28,8 @@ def choice_enum(name: str) -> type[Enum]:
 Chemistry = choice_enum("chemistry")
 Pco2Units = choice_enum("pco2_units")
 NegativeRunoff = choice_enum("negative_runoff")
+OutOfRange = choice_enum("out_of_range")
+BelowFreezing = choice_enum("below_freezing")
 Layout = choice_enum("layout")
 Compress = choice_enum("compress")
 LithologyResampling = choice_enum("lithology_resampling")
@@ -71,7 +73,9 @@ Pco2 = Annotated[Optional[str], typer.Option(
     metavar=VALUE, help=f"Soil CO2 partial pressure in --pco2-units (raster path or number), or '{PCO2_FROM_AET}' "
                         "for Brook et al. (1983) from --aet.")]
 Pco2UnitsText = Annotated[Optional[str], typer.Option(
-    "--pco2-units", metavar=_metavar(Pco2Units), help="Units of --pco2 (default atm).")]
+    "--pco2-units", metavar=_metavar(Pco2Units),
+    help="Units of --pco2 (default: the raster's declared unit, else atm); wins over the raster's metadata, "
+         "with a warning.")]
 Elevation = Annotated[Optional[str], typer.Option(metavar=VALUE, help=_role("elevation") + " Converts ppmv PCO2 to atm.")]
 AirPressure = Annotated[Optional[float], typer.Option(
     "--air-pressure", metavar="ATM", help="Air pressure [atm] for the ppmv PCO2 conversion, instead of --elevation "
@@ -112,6 +116,24 @@ ContinuousResamplingText = Annotated[Optional[str], typer.Option(
 NegativeRunoffText = Annotated[Optional[str], typer.Option(
     metavar=_metavar(NegativeRunoff),
     help="Negative runoff cells: error (default) or zero (taken as 0 mm/yr, counted in a warning).")]
+OutOfRangeText = Annotated[Optional[str], typer.Option(
+    metavar=_metavar(OutOfRange),
+    help="Continuous input cells outside their plausible range or not finite: error (default) or nodata "
+         "(counted per input in a warning and in run.json).")]
+BelowFreezingText = Annotated[Optional[str], typer.Option(
+    metavar=_metavar(BelowFreezing),
+    help="Temperature cells below 0 degrees C: nodata (default) or zero (taken as 0 degrees C water, counted).")]
+
+
+def _units_help(role: str) -> str:
+    return (f"Units of --{role.replace('_', '-')}: {', '.join(CHOICES[role + '_units'])} (default: the raster's "
+            f"declared unit, else {CHOICES[role + '_units'][0]}); wins over the raster's metadata, with a warning.")
+
+
+RunoffUnits = Annotated[Optional[str], typer.Option(metavar="UNIT", help=_units_help("runoff"))]
+PrecipitationUnits = Annotated[Optional[str], typer.Option(metavar="UNIT", help=_units_help("precipitation"))]
+AetUnits = Annotated[Optional[str], typer.Option(metavar="UNIT", help=_units_help("aet"))]
+TemperatureUnits = Annotated[Optional[str], typer.Option(metavar="UNIT", help=_units_help("temperature"))]
 Job = Annotated[Optional[Path], typer.Option(metavar="TOML", help="TOML job file with the same settings; flags override it.")]
 
 WORKERS_HELP = "Parallel workers (default: the cores available)."
@@ -132,7 +154,8 @@ MAP_SETTING_NAMES = (
     "lithology", "rocks", "runoff", "precipitation", "aet", "pco2", "pco2_units", "elevation", "air_pressure",
     "temperature", "soluble_fraction", "cover", "cover_min_thickness", "grid_like", "grid_crs", "grid_resolution", "grid_bounds", "chemistry",
     "workers", "block_size", "gdal_cache_mb", "layers", "layout", "compress", "lithology_resampling",
-    "continuous_resampling", "negative_runoff", "overwrite",
+    "continuous_resampling", "negative_runoff", "out_of_range", "below_freezing", "runoff_units",
+    "precipitation_units", "aet_units", "temperature_units", "overwrite",
 )
 
 

@@ -14,6 +14,13 @@ MOLAR_MASS_CO2_G_PER_MOL = 44.01
 # Validity of the Plummer & Busenberg (1982) fits: 0-90 degrees C at 1 atm total pressure.
 TEMPERATURE_MIN_C = 0.0
 TEMPERATURE_MAX_C = 90.0
+# Plausible band of an input temperature (screening for wrong units, not validity): below the
+# coldest surface air temperatures measured (about -89 degrees C, from memory) or above the boiling
+# point of water at 1 atm (100 degrees C, a definition) the values are in another unit (kelvin,
+# tenths of a degree). Cells inside this band but outside the validity above are nodata (or, below
+# 0 degrees C, taken as 0 degrees C water when asked), never an error.
+TEMPERATURE_PLAUSIBLE_MIN_C = -90.0
+TEMPERATURE_PLAUSIBLE_MAX_C = 100.0
 # Soil CO2 partial pressure must be positive and at most the 1 atm total pressure.
 PCO2_MAX_ATM = 1.0
 

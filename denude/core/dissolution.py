@@ -56,7 +56,8 @@ def warn_out_of_range(count: int, where: str = "") -> None:
             OutOfRangeWarning(
                 f"{count} cell(s){where} outside the validity of the constants "
                 f"(temperature {TEMPERATURE_MIN_C:g}-{TEMPERATURE_MAX_C:g} degrees C, "
-                f"0 < PCO2 <= {PCO2_MAX_ATM:g} atm) set to NaN"
+                f"0 < PCO2 <= {PCO2_MAX_ATM:g} atm) set to NaN (cells below {TEMPERATURE_MIN_C:g} degrees C "
+                "can be taken as 0 degrees C water with --below-freezing zero)"
             ),
             stacklevel=3,
         )

@@ -43,6 +43,10 @@ OUTPUT_LAYERS = {
 }
 
 
+#: Counts the kernel never sets (its callers do), left out of ``as_dict`` while zero.
+_CALLER_COUNTS = ("below_freezing", "set_to_nodata")
+
+
 @dataclass
 class BlockCounts:
     """Cell counts of one block; add them up over blocks and tiles."""
@@ -54,12 +58,33 @@ class BlockCounts:
     out_of_range: int = 0      # temperature/PCO2/soluble fraction outside validity
     zero_runoff: int = 0       # runoff <= 0 (rate 0)
     negative_runoff: int = 0   # runoff < 0 taken as 0 by the caller (counted there, not here)
+    below_freezing: int = 0    # temperature < 0 degrees C taken as 0 degrees C by the caller
+    set_to_nodata: dict = field(default_factory=dict)   # input role -> cells made nodata by the caller
 
     def __add__(self, other: "BlockCounts") -> "BlockCounts":
-        return BlockCounts(**{k: getattr(self, k) + getattr(other, k) for k in self.__dataclass_fields__})
+        values = {k: getattr(self, k) + getattr(other, k) for k in self.__dataclass_fields__ if k != "set_to_nodata"}
+        merged = dict(self.set_to_nodata)
+        for role, n in other.set_to_nodata.items():
+            merged[role] = merged.get(role, 0) + int(n)
+        return BlockCounts(**values, set_to_nodata=merged)
 
     def as_dict(self) -> dict:
-        return {k: int(getattr(self, k)) for k in self.__dataclass_fields__}
+        """Plain counts; the caller's ``below_freezing`` and ``set_to_nodata`` only when non-zero
+        (a kernel block never has them; run.json always lists them)."""
+        out = {k: int(getattr(self, k)) for k in self.__dataclass_fields__ if k not in _CALLER_COUNTS}
+        if self.below_freezing:
+            out["below_freezing"] = int(self.below_freezing)
+        if any(self.set_to_nodata.values()):
+            out["set_to_nodata"] = {role: int(n) for role, n in sorted(self.set_to_nodata.items())}
+        return out
+
+    @classmethod
+    def from_dict(cls, values: dict) -> "BlockCounts":
+        """Counts from ``as_dict`` output (unknown keys ignored, missing ones 0)."""
+        known = {k: v for k, v in values.items() if k in cls.__dataclass_fields__}
+        if "set_to_nodata" in known:
+            known["set_to_nodata"] = dict(known["set_to_nodata"])
+        return cls(**known)
 
 
 @dataclass

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from denude.core.constants import MOLAR_MASS_CO2_G_PER_MOL
+from denude.core.constants import MOLAR_MASS_CO2_G_PER_MOL, TEMPERATURE_MIN_C
 
 
 def effective_runoff_mm_per_yr(runoff_mm_per_yr):
@@ -55,3 +55,13 @@ def co2_drawdown_t_per_km2_yr(load_mol_per_l, runoff_mm_per_yr, co2_per_mol_mine
     """CO2 taken up by dissolution, t CO2 km-2 yr-1: n c q 44.01 (science notes section 6)."""
     q = effective_runoff_mm_per_yr(runoff_mm_per_yr)
     return np.asarray(co2_per_mol_mineral, dtype=np.float64) * np.asarray(load_mol_per_l) * q * MOLAR_MASS_CO2_G_PER_MOL
+
+
+def take_below_freezing_as_zero(temperature_c, counted):
+    """(temperature with cells below 0 degrees C set to 0 degrees C, cells replaced among
+    ``counted``) [degrees C]: water below freezing taken as water at 0 degrees C. NaN stays NaN."""
+    t = np.asarray(temperature_c, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        cold = t < TEMPERATURE_MIN_C
+    n = int(np.count_nonzero(np.broadcast_to(cold, np.shape(counted)) & np.asarray(counted, bool)))
+    return np.where(cold, TEMPERATURE_MIN_C, t), n

@@ -15,6 +15,16 @@ def air_pressure_atm(elevation_m):
     return np.exp(-np.asarray(elevation_m, dtype=np.float64) / AIR_PRESSURE_SCALE_HEIGHT_M)
 
 
+def sea_level_overstatement(elevation_m):
+    """Relative overstatement of the equilibrium load (and so of the rates) when a PCO2 in ppmv
+    at ``elevation_m`` (m) is converted at 1 atm instead of the local air pressure [fraction].
+
+    Derived: PCO2 at 1 atm is 1/p(z) = exp(z / 8400 m) times the true one, and the load goes
+    with the cube root of PCO2 (White 1984), so the load is exp(z / 25200 m) - 1 too high.
+    """
+    return np.asarray(air_pressure_atm(elevation_m), dtype=np.float64) ** (-1.0 / 3.0) - 1.0
+
+
 def ppmv_to_atm(pco2_ppmv, air_pressure_atm_=1.0):
     """PCO2 in atm from a volume mixing ratio in ppmv and the air pressure in atm."""
     return np.asarray(pco2_ppmv, dtype=np.float64) * 1e-6 * np.asarray(air_pressure_atm_, dtype=np.float64)

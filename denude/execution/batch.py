@@ -40,6 +40,7 @@ from denude.execution.batch_tile import (  # noqa: F401  (names of the pre-split
 )
 from denude.execution.plan import grid_source, raster_roles
 from denude.execution.tiling import Tile, check_tile_size, make_tiles
+from denude.core.kernel import BlockCounts
 from denude.execution.validation import refuse_inputs_inside, validate_job, warn_about_counts
 from denude.execution.manifest import (
     MANIFEST_NAME, InputStamps, Manifest, job_key, tile_input_sha256, verify_outputs,
@@ -232,6 +233,7 @@ class BatchJob:
         """Resolve inputs, validate, make tiles, and pick the tiles to (re)run."""
         self.resolved = resolve_inputs(self.settings, self.out)
         self.grid, self.report = _preflight(self.resolved)
+        self.resolved = self.report.settings            # with the units validation resolved
         self.hashes = HashJob(hashed_paths(self.resolved, self.report))
         _check_zone_files(self.zones, self.grid)
         self.tiles = make_tiles(self.grid, self.size)
@@ -354,10 +356,9 @@ class BatchJob:
             outputs += zone_summary(out, tiles, self.zones, self.grid)
         if complete and self.merge:
             outputs += merge_layers(out, self.grid, self.resolved, self.layers, choose_layout(self.resolved.layout, self.grid))
-        counts: dict = {}
-        for t in tiles:
-            for k, v in (manifest.tiles.get(t.id, {}).get("counts") or {}).items():
-                counts[k] = counts.get(k, 0) + int(v)
+        per_tile = [manifest.tiles.get(t.id, {}).get("counts") for t in tiles]
+        per_tile = [BlockCounts.from_dict(c) for c in per_tile if c]
+        counts: dict = sum(per_tile, BlockCounts()).as_dict() if per_tile else {}
         wall = time.perf_counter() - started
         failed = dict(sorted(self.failed.items()))
         settings, resolved = self.settings, self.resolved

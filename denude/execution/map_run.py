@@ -58,6 +58,7 @@ def run_map(settings: MapSettings, progress: Callable[[int, int], None] | None =
 
 def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     report = validate_job(settings, for_output=True, scan=False)
+    settings = report.settings          # with the input units validation resolved
     grid = report.grid
     out = Path(settings.out).resolve()
     windows = block_windows(grid.height, grid.width, settings.block_size)

@@ -189,6 +189,7 @@ def run_uncertainty(settings: MapSettings, spec: UncertaintySpec, draws: int, se
 
 def _run(settings, spec, n_draws, seed, zones, progress, started):
     report = validate_job(settings, for_output=True, scan=False)
+    settings = report.settings          # with the input units validation resolved
     if zones is not None:
         refuse_inputs_inside({"zones": zones.path}, Path(settings.out).resolve(), "output folder")
     check_rock_names(spec, report.rocks, settings.job_file or "(none)")

@@ -18,8 +18,11 @@ from pathlib import Path
 
 import numpy as np
 
+from denude.core.constants import TEMPERATURE_MIN_C, TEMPERATURE_PLAUSIBLE_MAX_C, TEMPERATURE_PLAUSIBLE_MIN_C
 from denude.core.dissolution import warn_out_of_range
 from denude.core.rocks import RockTable
+from denude.core.soil_co2 import sea_level_overstatement
+from denude.core.units import convert
 from denude.errors import CoverageWarning, DenudeError, DenudeWarning, GridError, InputError, OutputError, RasterReadError
 from denude.execution.plan import JobPlan, gdal_env, load_rocks, raster_roles, requested_resampling, resolve_grid
 from denude.io.grid import Grid
@@ -27,9 +30,10 @@ from denude.io.jobfile import MapSettings, is_constant
 from denude.io.mosaic import is_virtual_path
 from denude.io.outdir import check_new_folder
 from denude.io.rasters import (
-    RasterInfo, WarpPlan, choose_layout, describe_dataset, open_raster, overlap_fraction, plan_warp,
-    sample_value_range, unique_codes, value_range,
+    RasterInfo, WarpPlan, choose_layout, decimated_codes, describe_dataset, open_raster, overlap_fraction,
+    plan_warp, sample_value_range, unique_codes, value_range,
 )
+from denude.io.units import UnitChoice, choose_unit, settings_unit
 from denude.registry import INPUT_ROLES, PCO2_FROM_AET, VALUE_FIELDS
 
 #: A target grid with more than this many times the lithology raster's cells is taken to be a
@@ -49,12 +53,14 @@ PLAUSIBLE = {
     "runoff": (0.0, 20000.0, "give runoff in mm/yr (not m/yr or mm/month)"),
     "precipitation": (0.0, 20000.0, "give precipitation in mm/yr"),
     "aet": (0.0, 5000.0, "give actual evapotranspiration in mm/yr"),
-    "temperature": (-70.0, 60.0, "give temperature in degrees C (not kelvin or tenths of a degree)"),
+    "temperature": (TEMPERATURE_PLAUSIBLE_MIN_C, TEMPERATURE_PLAUSIBLE_MAX_C,
+                    "give temperature in degrees C (not kelvin or tenths of a degree), or declare its unit"),
     "elevation": (-500.0, 9000.0, "give elevation in metres above sea level"),
     "soluble_fraction": (0.0, 1.0, "give the soluble-area fraction as 0-1 (not percent)"),
     # the deepest sediment-filled basins hold a few km of fill; more looks like cm or mm
     "cover": (0.0, 5000.0, "give the cover thickness in m (or a 0/1 mask)"),
     "pco2:atm": (0.0, 1.0, "values above 1 atm look like ppmv: use --pco2-units ppmv"),
+    "pco2:negative": (0.0, math.inf, "a PCO2 must be positive (negative values often come from an interpolation)"),
     "pco2:ppmv": (1.0, 1e6, "values below 1 ppmv look like atm: use --pco2-units atm"),
     "pco2:log10atm": (-6.0, 0.0, "give log10 of PCO2 in atm (e.g. -2), or use --pco2-units atm"),
 }
@@ -64,6 +70,29 @@ NEGATIVE_RUNOFF_FIX = (
     "negative runoff usually means wrong units or a water-balance residual: set those cells to nodata, "
     "or use --negative-runoff zero (job file [run] negative_runoff = \"zero\") to take them as 0 mm/yr"
 )
+
+#: Said with every value that the default --out-of-range error refuses.
+OUT_OF_RANGE_FIX = "or use --out-of-range nodata (job file [run] out_of_range = \"nodata\") to take such cells as nodata"
+
+#: Relative elevations (m) at which the ppmv-at-sea-level warning states its size.
+PPMV_WARNING_ELEVATIONS_M = (1500.0, 2000.0)
+
+
+def pco2_target(settings: MapSettings) -> str:
+    """The PCO2 unit the values are converted to before the pressure rule: atm, ppmv or log10atm."""
+    return settings_unit(settings, "pco2")[0].target
+
+
+def value_band(role: str, settings: MapSettings) -> tuple[float, float] | None:
+    """(low, high) plausible band of ``role`` in the run's unit under these settings, or None.
+    With --negative-runoff zero, runoff has no lower bound (negative cells become 0 mm/yr)."""
+    key = f"pco2:{pco2_target(settings)}" if role == "pco2" else role
+    if key not in PLAUSIBLE:
+        return None
+    low, high, _ = PLAUSIBLE[key]
+    if role == "runoff" and settings.negative_runoff == "zero":
+        low = -math.inf
+    return low, high
 
 
 def band_text(low: float, high: float) -> str:
@@ -75,17 +104,20 @@ def implausible(role: str, settings: MapSettings, low_value: float, high_value: 
     """(offending value, band low, band high, fix, unit) when [low_value, high_value] leaves the
     plausible band of ``role`` under these settings, else None. With --negative-runoff zero,
     runoff has no lower bound (negative cells become 0 mm/yr)."""
-    key = f"pco2:{settings.pco2_units}" if role == "pco2" else role
-    if key not in PLAUSIBLE:
+    target = pco2_target(settings)
+    key = f"pco2:{target}" if role == "pco2" else role
+    band = value_band(role, settings)
+    if band is None:
         return None
-    low, high, fix = PLAUSIBLE[key]
-    if role == "runoff" and settings.negative_runoff == "zero":
-        low = -math.inf
+    low, high = band
+    fix = PLAUSIBLE[key][2]
     if low_value >= low and high_value <= high:
         return None
     bad = low_value if low_value < low else high_value
     if role == "runoff" and bad < 0:
         fix = NEGATIVE_RUNOFF_FIX
+    if role == "pco2" and bad < 0 and target != "log10atm":
+        fix = PLAUSIBLE["pco2:negative"][2]
     unit = {"pco2:atm": "atm", "pco2:ppmv": "ppmv", "pco2:log10atm": "log10 atm"}.get(key, INPUT_ROLES[role].unit)
     return bad, low, high, fix, unit
 
@@ -116,13 +148,29 @@ class JobReport:
     codes_missing: list = field(default_factory=list)
     layout: str = "cog"
     notes: list = field(default_factory=list)
+    units: dict = field(default_factory=dict)      # role -> UnitChoice of each continuous input
+
+    def resolve_units(self) -> None:
+        """Put the units chosen so far into ``settings.input_units`` (what every window reads)."""
+        entries = tuple((c.role, c.unit.name, c.source, c.declared) for c in self.units.values())
+        if entries != self.settings.input_units:
+            self.settings = self.settings.replace(input_units=entries)
 
 
 def check_range(role: str, where: str, low_value: float, high_value: float, settings: MapSettings,
                  whole: bool = True) -> None:
     """Raise a one-line error when values are implausible. ``whole``: the range covers the whole
     input (a constant or a raster-wide scan), not one window, so unit heuristics apply."""
+    for value in (low_value, high_value):
+        if not math.isfinite(value):
+            raise InputError(
+                f"{where}: {role} value {value:g} is not a finite number; set those cells to nodata, "
+                f"{OUT_OF_RANGE_FIX}")
     found = implausible(role, settings, low_value, high_value)
+    if found is not None and settings.out_of_range == "nodata":
+        band = value_band(role, settings)
+        if not whole or (low_value <= band[1] and high_value >= band[0]):
+            found = None      # some cells in the band: the others become nodata, counted per input
     if whole and role in ("runoff", "precipitation") and 0 < high_value < MIN_PLAUSIBLE_MAX_MM_PER_YR:
         raise InputError(
             f"{where}: largest {role} value {high_value:g} mm/yr is implausibly small; the values look "
@@ -132,13 +180,14 @@ def check_range(role: str, where: str, low_value: float, high_value: float, sett
         return
     bad, low, high, fix, unit = found
     if role == "temperature" and high_value > 200:
-        fix = "values look like kelvin; convert to degrees C (subtract 273.15)"
+        fix = "values look like kelvin: use --temperature-units K (or subtract 273.15)"
     if role == "soluble_fraction" and 1 < high_value <= 100:
         fix = "values look like percent; divide by 100"
-    if role == "pco2" and settings.pco2_units == "atm" and high_value <= 0 and low_value >= -6:
+    if role == "pco2" and pco2_target(settings) == "atm" and high_value <= 0 and low_value >= -6:
         fix = "values look like log10 atm: use --pco2-units log10atm"
+    tail = f"; {OUT_OF_RANGE_FIX}" if settings.out_of_range == "error" and not where.startswith("--") else ""
     raise InputError(
-        f"{where}: {role} value {bad:g} is outside {band_text(low, high)} {unit}; {fix}"
+        f"{where}: {role} value {bad:g} is outside {band_text(low, high)} {unit}; {fix}{tail}"
     )
 
 
@@ -202,9 +251,50 @@ def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: st
         _check_constants(report)
         for role, path in roles.items():
             ds = lithology if role == "lithology" else stack.enter_context(open_raster(path, role))
+            if role != "lithology":
+                _choose_unit(report, role, ds, path)
             report.inputs[role] = _check_raster(report, role, path, ds, values, scan, tolerant)
-        _check_codes(report, lithology, scan, tolerant)
+        _check_units_together(report)
+        _check_codes(report, lithology, scan, tolerant, values)
     return report
+
+
+def _choose_unit(report: JobReport, role: str, ds, path) -> UnitChoice:
+    """The unit of one input (option > metadata > default), recorded in the report and its
+    settings; a conversion is said in one line, an option overriding metadata is warned about."""
+    option = getattr(report.settings, f"{role}_units", None)
+    choice, warning = choose_unit(role, option, ds, path)
+    if warning:
+        warnings.warn(DenudeWarning(warning), stacklevel=5)
+    report.units[role] = choice
+    report.resolve_units()
+    if choice.source == "metadata" and not choice.unit.identity:
+        message = (f"{role} raster {path} declares unit {choice.declared!r}: values converted from "
+                   f"{choice.unit.name} to {choice.unit.target} ({choice.unit.describe()})")
+        report.notes.append(message)
+        warnings.warn(DenudeWarning(message), stacklevel=5)
+    return choice
+
+
+def _check_units_together(report: JobReport) -> None:
+    """Rules across inputs: elevation/pressure only convert ppmv, and ppmv without them is
+    converted at sea level (a warning stating the size of that assumption)."""
+    settings = report.settings
+    target = pco2_target(settings)
+    if settings.pco2_from_aet or settings.pco2 is None:
+        return
+    if target == "ppmv" and settings.elevation is None and settings.air_pressure_atm is None:
+        sizes = ", ".join(f"+{100 * float(sea_level_overstatement(z)):.1f} % at {z:,.0f} m"
+                          for z in PPMV_WARNING_ELEVATIONS_M)
+        message = ("PCO2 in ppmv without --elevation or --air-pressure: converted at 1 atm (sea level); above sea "
+                   "level this overstates PCO2 by exp(z / 8400 m) and the carbonate rates by its cube root "
+                   f"({sizes}, derived); give --elevation (m) or --air-pressure (atm) to correct")
+        report.notes.append(message)
+        warnings.warn(DenudeWarning(message), stacklevel=4)
+    if target != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
+        warnings.warn(DenudeWarning(
+            f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings_unit(settings, 'pco2')[0].name}"),
+            stacklevel=4)
 
 
 #: The name the pre-split module used; kept for callers of the old name.
@@ -214,24 +304,22 @@ def _inspect_job(settings: MapSettings, for_output: bool, scan: bool) -> JobRepo
 
 def _check_constants(report: JobReport) -> None:
     """Constants (cheap, checked first) and the notes on unit conversions."""
-    settings = report.settings
     for role in VALUE_FIELDS:
-        value = getattr(settings, role)
+        value = getattr(report.settings, role)
         if is_constant(value):
-            check_range(role, f"--{role.replace('_', '-')} {value:g}", value, value, settings)
+            choice, _ = choose_unit(role, getattr(report.settings, f"{role}_units", None))
+            report.units[role] = choice
+            report.resolve_units()
+            converted = float(convert(value, choice.unit))
+            check_range(role, f"--{role.replace('_', '-')} {value:g}", converted, converted, report.settings)
             report.inputs[role] = InputReport(role, constant=value)
+    settings = report.settings
     if settings.air_pressure_atm is not None:
         report.notes.append(f"air pressure {settings.air_pressure_atm:g} atm for ppmv -> atm")
-    elif settings.pco2_units == "ppmv" and settings.elevation is None:
-        report.notes.append("air pressure 1 atm (sea level) assumed for ppmv -> atm; give --elevation to correct")
     if settings.pco2_from_aet:
         report.notes.append("soil PCO2 derived per cell from AET (Brook, Folkoff & Box 1983)")
     if is_constant(settings.runoff) and settings.runoff < 0:
         report.notes.append(f"runoff {settings.runoff:g} mm/yr is negative: taken as 0 mm/yr (--negative-runoff zero)")
-    if settings.pco2_units != "ppmv" and (settings.elevation is not None or settings.air_pressure_atm is not None):
-        warnings.warn(DenudeWarning(
-            f"elevation / air pressure only convert ppmv PCO2; ignored with --pco2-units {settings.pco2_units}"),
-            stacklevel=4)
 
 
 def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan: bool,
@@ -270,20 +358,38 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
     if n == 0 and scan:
         raise InputError(f"{role} raster {path} has no valid cells (all nodata); check its nodata value")
     if n:
+        unit = settings_unit(settings, role)[0]
+        lo, hi = float(convert(lo, unit)), float(convert(hi, unit))
         item.value_min, item.value_max = lo, hi
         check_range(role, f"{role} raster {path}", lo, hi, settings)
         if role == "runoff" and lo < 0:
+            fate = ("taken as 0 mm/yr (--negative-runoff zero)" if settings.negative_runoff == "zero"
+                    else "nodata (--out-of-range nodata)")
             report.notes.append(f"runoff raster {path} has negative values (down to {lo:g} mm/yr); "
-                                "they will be taken as 0 mm/yr (--negative-runoff zero)")
+                                f"they will be {fate}")
     return item
 
 
-def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool) -> None:
+def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool, values: str = "sample") -> None:
     """Every lithology code in the rock table (`check`), and integer codes in a float raster
-    (always: a non-integer code must be an error, never truncated into another rock type)."""
+    (always: a non-integer code must be an error, never truncated into another rock type).
+    A run with a decimated value read (`batch`) also reads the codes decimated, so codes missing
+    from the rock table fail here with the message `check` and `map` give, not once per tile."""
     settings, rocks = report.settings, report.rocks
     lithology_is_float = not np.issubdtype(np.dtype(report.inputs["lithology"].info.dtype), np.integer)
     if not scan and not lithology_is_float:
+        if values == "decimated":
+            try:
+                codes = decimated_codes(settings.lithology, dataset=lithology)
+            except DenudeError:
+                raise
+            except Exception:
+                if not tolerant:
+                    raise
+                return
+            missing = rocks.missing_codes(codes)
+            if missing:
+                raise missing_codes_error(settings.lithology, missing, rocks)
         return
     try:
         codes = unique_codes(settings.lithology, dataset=lithology)
@@ -305,6 +411,17 @@ def warn_about_counts(counts: dict) -> None:
     """One-line warnings a finished run owes its user: cells out of the constants' range, and a
     map that is mostly zero because runoff is <= 0 (P < AET, or swapped inputs)."""
     warn_out_of_range(counts.get("out_of_range", 0))
+    made_nodata = {role: n for role, n in (counts.get("set_to_nodata") or {}).items() if n}
+    if made_nodata:
+        per_input = ", ".join(f"{role} {n}" for role, n in made_nodata.items())
+        warnings.warn(DenudeWarning(
+            f"map cells set to nodata for an input value outside its plausible range or not finite "
+            f"(--out-of-range nodata): {per_input}; check those inputs if that many is unexpected"), stacklevel=2)
+    cold = counts.get("below_freezing", 0)
+    if cold:
+        warnings.warn(DenudeWarning(
+            f"{cold} map cells had temperature below {TEMPERATURE_MIN_C:g} degrees C and were taken as "
+            f"{TEMPERATURE_MIN_C:g} degrees C water (--below-freezing zero)"), stacklevel=2)
     negative = counts.get("negative_runoff", 0)
     if negative:
         warnings.warn(DenudeWarning(

@@ -18,7 +18,7 @@ from denude.core.cover import classify_cover
 from denude.core.hazard import classify
 from denude.core.kernel import BlockCounts, compute_block
 from denude.execution.plan import InputReaders, JobPlan, prepare_job
-from denude.execution.window_inputs import input_value, read_window_inputs
+from denude.execution.window_inputs import read_window_inputs
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 
@@ -44,14 +44,6 @@ def compute_window(settings: MapSettings, grid: Grid, window: Window, readers: I
     return run_window(prepare_job(settings, grid), window, readers, layers)
 
 
-def _read_inputs(plan: JobPlan, window: Window, readers: InputReaders, ranges: dict):
-    """(codes, valid, runoff [mm/yr], PCO2 [atm], temperature [degrees C], soluble fraction,
-    negative runoff cells) of one window, the scenario applied; constants stay floats."""
-    inputs = read_window_inputs(readers, plan.settings, window, ranges)
-    return (inputs.codes, inputs.valid, inputs.runoff, inputs.pco2, inputs.temperature, inputs.fraction,
-            inputs.negative_runoff)
-
-
 def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = None, layers=None) -> WindowResult:
     """``compute_window`` for a caller holding the plan (no lookup of the plan per window)."""
     settings = plan.settings
@@ -60,15 +52,17 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
     ranges: dict = {}
     wanted = set(layers or settings.layers)
     try:
-        codes, valid, runoff, pco2, temperature, fraction, negative = _read_inputs(plan, window, readers, ranges)
-        cover = input_value(readers, settings, "cover", window, ranges) if "covered_karst" in wanted else None
+        inputs = read_window_inputs(readers, settings, window, ranges, with_cover="covered_karst" in wanted)
     finally:
         if own:
             readers.close()
+    codes, valid, fraction, cover = inputs.codes, inputs.valid, inputs.fraction, inputs.cover
     lookup = plan.rocks.lookup()
-    result = compute_block(codes, runoff, pco2, temperature, lookup, settings.chemistry,
+    result = compute_block(codes, inputs.runoff, inputs.pco2, inputs.temperature, lookup, settings.chemistry,
                            soluble_fraction=fraction, lithology_valid=valid, warn=False)
-    result.counts.negative_runoff = negative
+    result.counts.negative_runoff = inputs.negative_runoff
+    result.counts.below_freezing = inputs.below_freezing
+    result.counts.set_to_nodata = inputs.set_to_nodata
     row = lookup.row_index(codes)
     known = valid & (row >= 0)
     present = np.bincount(row[known], minlength=len(lookup.codes)) > 0

@@ -27,8 +27,9 @@ from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, c
 from denude.core.scenario import Scenario
 from denude.errors import DenudeError, InputError, JobFileError, OutputError
 
+from denude.core.units import require_unit
 from denude.registry import (ALL_LAYERS, CHOICES, INPUT_ROLES, LAYERS, OUTPUT_LAYERS, PATH_FIELDS, PCO2_FROM_AET,
-                             REFUSED_LITHOLOGY_RESAMPLING, VALUE_FIELDS, default_layers)
+                             REFUSED_LITHOLOGY_RESAMPLING, UNIT_FIELDS, VALUE_FIELDS, default_layers)
 
 def available_cores() -> int:
     """Cores this process may run on (``os.sched_getaffinity``; ``os.cpu_count`` where that is
@@ -71,7 +72,8 @@ JOB_TABLE: dict[str, dict[str, JobKey]] = {
         "aet": JobKey("aet", "aet.tif", "Actual evapotranspiration, mm/yr: a raster path or a number."),
         "pco2": JobKey("pco2", 0.01, f"Soil PCO2 in pco2_units (raster or number), or \"{PCO2_FROM_AET}\" "
                        "for Brook et al. (1983) from aet.", True),
-        "pco2_units": JobKey("pco2_units", CHOICES["pco2_units"][0], f"Units of pco2: {_choices('pco2_units')}.", True),
+        "pco2_units": JobKey("pco2_units", CHOICES["pco2_units"][0], f"Units of pco2: {_choices('pco2_units')} "
+                             "(default: the raster's declared unit, else atm).", True),
         "elevation": JobKey("elevation", "dem.tif", "Elevation, m above sea level (raster or number); "
                             "converts ppmv PCO2 to atm."),
         "air_pressure_atm": JobKey("air_pressure_atm", 1.0, "Air pressure, atm, for ppmv PCO2, instead of "
@@ -84,6 +86,9 @@ JOB_TABLE: dict[str, dict[str, JobKey]] = {
         "cover_min_thickness_m": JobKey("cover_min_thickness_m", 0.0,
                                         "Least cover thickness, m, that counts as cover (default 0: any thickness > 0, "
                                         "a mask value of 1)."),
+        **{field: JobKey(field, CHOICES[field][1], f"Units of {role}: {_choices(field)} (default: the raster's "
+                         f"declared unit, else {CHOICES[field][0]}); wins over the raster's metadata.")
+           for field, role in UNIT_FIELDS.items() if field != "pco2_units"},
     },
     "grid": {
         "like": JobKey("grid_like", "other.tif", "Use this raster's grid (default: the lithology raster's grid)."),
@@ -112,6 +117,12 @@ JOB_TABLE: dict[str, dict[str, JobKey]] = {
         "negative_runoff": JobKey("negative_runoff", CHOICES["negative_runoff"][0],
                                   f"{_choices('negative_runoff')}: refuse negative runoff cells, or take them "
                                   "as 0 mm/yr (counted in a warning)."),
+        "out_of_range": JobKey("out_of_range", CHOICES["out_of_range"][0],
+                               f"{_choices('out_of_range')}: refuse continuous input cells outside their plausible "
+                               "range (or not finite), or take them as nodata (counted per input)."),
+        "below_freezing": JobKey("below_freezing", CHOICES["below_freezing"][0],
+                                 f"{_choices('below_freezing')}: temperature cells below 0 degrees C become nodata, "
+                                 "or are taken as 0 degrees C water (counted)."),
     },
     "hazard": {
         "breaks_mm_per_kyr": JobKey("hazard_breaks_mm_per_kyr", list(DEFAULT_BREAKS_MM_PER_KYR),
@@ -157,7 +168,7 @@ class MapSettings:
     precipitation: str | float | None = None    # mm/yr
     aet: str | float | None = None              # actual evapotranspiration, mm/yr
     pco2: str | float | None = None             # in pco2_units, or PCO2_FROM_AET
-    pco2_units: str = "atm"
+    pco2_units: str | None = None               # None: the raster's declared unit, else atm
     elevation: str | float | None = None        # m above sea level (ppmv -> atm)
     air_pressure_atm: float | None = None       # atm (ppmv -> atm), instead of elevation
     soluble_fraction: str | float | None = None  # 0-1, None = 1
@@ -180,6 +191,13 @@ class MapSettings:
     lithology_resampling: str = "auto"
     continuous_resampling: str = "auto"
     negative_runoff: str = "error"              # NEGATIVE_RUNOFF
+    out_of_range: str = "error"                 # CHOICES["out_of_range"]
+    below_freezing: str = "nodata"              # CHOICES["below_freezing"]
+    runoff_units: str | None = None             # None: declared unit, else mm/yr
+    precipitation_units: str | None = None
+    aet_units: str | None = None
+    temperature_units: str | None = None        # None: declared unit, else degrees C
+    input_units: tuple = ()                     # resolved by validation: ((role, unit, source, declared), ...)
     hazard_breaks_mm_per_kyr: tuple = DEFAULT_BREAKS_MM_PER_KYR
     hazard_names: tuple = DEFAULT_CLASS_NAMES
     scenario: Scenario | None = None            # changes to the inputs (job file [scenario])
@@ -222,6 +240,7 @@ def is_constant(value) -> bool:
 
 #: How a choice setting is named in its messages when no flag or job key is known.
 _CHOICE_WHAT = {"pco2_units": "pco2 units", "negative_runoff": "negative runoff handling",
+                "out_of_range": "out-of-range handling", "below_freezing": "below-freezing handling",
                 "compress": "compression", "lithology_resampling": "lithology resampling",
                 "continuous_resampling": "continuous resampling"}
 
@@ -255,8 +274,12 @@ def check_choice(name: str, value, what: str | None = None) -> None:
 def check_settings(s: MapSettings) -> None:
     """One-line errors for settings that cannot work together."""
     where = f"job file {s.job_file}: " if s.job_file else ""
-    for name in ("chemistry", "pco2_units", "negative_runoff", "layers"):
-        check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
+    for name in ("chemistry", "pco2_units", "negative_runoff", "out_of_range", "below_freezing", "layers"):
+        if getattr(s, name) is not None:
+            check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
+    for name, role in UNIT_FIELDS.items():
+        if name != "pco2_units" and getattr(s, name) is not None:
+            require_unit(role, getattr(s, name), where + name)
     for layer in s.layers:
         needs = OUTPUT_LAYERS[layer].needs
         if needs is not None and getattr(s, needs) is None:
@@ -280,7 +303,7 @@ def check_settings(s: MapSettings) -> None:
         )
     if s.pco2_from_aet and s.aet is None:
         raise InputError(f"{where}--pco2 {PCO2_FROM_AET} needs --aet (actual evapotranspiration, mm/yr)")
-    if s.pco2_units == "ppmv" and s.elevation is not None and s.air_pressure_atm is not None:
+    if s.pco2_units in ("ppmv", None) and s.elevation is not None and s.air_pressure_atm is not None:
         raise InputError(f"{where}give either elevation or air_pressure_atm for ppmv PCO2, not both")
     if s.air_pressure_atm is not None and not (0.2 <= s.air_pressure_atm <= 1.1):
         raise InputError(f"{where}air_pressure_atm {s.air_pressure_atm} is outside 0.2-1.1 atm; give the air pressure in atm")
@@ -432,6 +455,8 @@ def read_batch_options(path) -> dict:
 def _coerce(name: str, value, base: Path | None, where: str):
     """Convert one raw value (TOML or flag) to the MapSettings field type."""
     try:
+        if name in UNIT_FIELDS and name != "pco2_units":
+            return require_unit(UNIT_FIELDS[name], str(getattr(value, "value", value)), where).name
         if name in VALUE_FIELDS:
             return _parse_value(value, name, base)
         if name in PATH_FIELDS:

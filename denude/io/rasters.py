@@ -509,6 +509,20 @@ def sample_value_range(path, role: str, samples_per_side: int = 4, side: int = 6
     return (lo, hi, n) if n else (math.nan, math.nan, 0)
 
 
+def decimated_codes(path, role: str = "lithology", max_side: int = 1024, dataset=None) -> list[int]:
+    """Codes in a decimated read of band 1 (nearest, at most ``max_side`` cells per side;
+    nodata and NaN excluded): every code of a small raster, the common codes of a large one."""
+    with _opened(path, role, dataset) as ds:
+        step = max(1, math.ceil(max(ds.width, ds.height) / max_side))
+        shape = (max(1, ds.height // step), max(1, ds.width // step))
+        data = ds.read(1, out_shape=shape, masked=True, resampling=Resampling.nearest)
+    values = data.compressed()
+    if values.dtype.kind == "f":
+        values = values[np.isfinite(values)]
+        values = values[values == np.round(values)]
+    return sorted(int(v) for v in np.unique(values))
+
+
 def unique_codes(path, role: str = "lithology", dataset=None) -> list[int]:
     """Every code in band 1, read block by block (nodata and NaN excluded). Non-integer
     values anywhere in a float raster are an error naming one of them."""

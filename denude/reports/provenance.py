@@ -35,11 +35,14 @@ def check_lines(report) -> list[str]:
     lines = [f"target grid: {report.grid.describe()}", f"output layout: {report.layout}",
              f"chemistry: {s.chemistry}"]
     for role, item in report.inputs.items():
+        choice = report.units.get(role)
         if item.constant is not None:
-            unit = s.pco2_units if role == "pco2" else ""
+            unit = choice.unit.name if choice is not None and (role == "pco2" or choice.source == "option") else ""
             lines.append(f"{role}: constant {item.constant:g} {unit}".rstrip())
             continue
         lines.append(item.info.describe())
+        if choice is not None:
+            lines.append(f"  unit {choice.unit.name} ({choice.source})")
         lines.append(
             f"  overlap {100 * item.overlap:.1f}% of the target grid; {item.warp.describe()}"
             + ("" if item.value_min is None else f"; values {_fmt(item.value_min)} to {_fmt(item.value_max)}")

@@ -21,6 +21,7 @@ from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.io.mosaic import is_virtual_path
 from denude.io.outdir import write_text_atomic
 from denude.io.rasters import file_sha256
+from denude.io.units import settings_unit
 from denude.registry import INPUT_ROLES
 
 RUN_RECORD = "run.json"
@@ -58,8 +59,18 @@ class HashJob:
         return self.hashes
 
 
-def _unit(settings, role: str) -> str:
-    return settings.pco2_units if role == "pco2" else INPUT_ROLES[role].unit
+def _unit(settings, role: str) -> dict:
+    """``unit`` (the unit the values were read in), ``unit_source`` (metadata, option or
+    default) and, where they differ from it, the unit the run converted them to."""
+    unit, source = settings_unit(settings, role)
+    entry = {"unit": unit.name, "unit_source": source}
+    declared = next((e[3] for e in settings.input_units if e[0] == role and len(e) > 3 and e[3]), None)
+    if declared is not None:
+        entry["unit_declared"] = declared
+    if not unit.identity:
+        entry["converted_to"] = unit.target
+        entry["conversion"] = unit.describe()
+    return entry
 
 
 def input_records(settings, report, hashes: dict) -> dict:
@@ -67,7 +78,11 @@ def input_records(settings, report, hashes: dict) -> dict:
     records = {}
     for role, item in report.inputs.items():
         if item.constant is not None:
-            records[role] = {"constant": item.constant, "unit": _unit(settings, role)}
+            # a number has no metadata: its unit is the run's unless an option named another
+            unit = _unit(settings, role)
+            if unit["unit_source"] == "default":
+                unit.pop("unit_source")
+            records[role] = {"constant": item.constant, **unit}
             continue
         info = item.info
         crs = info.grid.crs
@@ -82,8 +97,11 @@ def input_records(settings, report, hashes: dict) -> dict:
             "resolution": list(info.res),
             "nodata": _json_number(info.nodata),
             "resampling": "none (aligned)" if item.warp.offset is not None else item.warp.resampling,
-            "unit": _unit(settings, role),
         }
+        if role != "lithology":
+            records[role].update(_unit(settings, role))
+        else:
+            records[role]["unit"] = INPUT_ROLES[role].unit
     if settings.rocks:
         records["rocks"] = {"path": settings.rocks, "size_bytes": os.path.getsize(settings.rocks),
                             "sha256": hashes.get(settings.rocks)}
@@ -111,6 +129,9 @@ def run_record(command: str, settings, report, hashes: dict, grid, grid_source: 
         "grid_source": grid_source,
     }
     record.update(extra)
+    if counts:                       # the policy counts are always listed, zero or not
+        counts = {**counts, "below_freezing": counts.get("below_freezing", 0),
+                  "set_to_nodata": counts.get("set_to_nodata", {})}
     record.update({"counts": counts, "outputs": list(outputs), "wall_time_s": round(wall_time_s, 3)})
     return record
 
