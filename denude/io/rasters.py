@@ -459,7 +459,15 @@ def choose_layout(layout: str, grid: Grid) -> str:
     return layout
 
 
-def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+#: Threads GDAL compresses with (its NUM_THREADS creation option): every core. Compression
+#: runs blocks side by side and writes them in their fixed order, so the bytes of a file do
+#: not depend on it (checked in tests/test_rasters.py).
+GDAL_THREADS = "ALL_CPUS"
+
+
+def creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+    """GTiff creation options of a tiled output (compression, predictor, tiles, BigTIFF when
+    needed, compression threads)."""
     if compress not in COMPRESSIONS:
         raise InputError(f"compression {compress!r} is not known; use one of {', '.join(COMPRESSIONS)}")
     floating = np.dtype(spec.dtype).kind == "f"
@@ -470,6 +478,23 @@ def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
         "blockxsize": block_size,
         "blockysize": block_size,
         "bigtiff": "IF_SAFER",
+        "num_threads": GDAL_THREADS,
+    }
+
+
+def cog_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+    """COG driver options of an output: the same compression, predictor and tiles as
+    ``creation_options``, overviews made by the driver with the layer's resampling."""
+    if compress not in COMPRESSIONS:
+        raise InputError(f"compression {compress!r} is not known; use one of {', '.join(COMPRESSIONS)}")
+    return {
+        "COMPRESS": compress.upper(),
+        "PREDICTOR": "FLOATING_POINT" if np.dtype(spec.dtype).kind == "f" else "STANDARD",
+        "BLOCKSIZE": block_size,
+        "BIGTIFF": "IF_SAFER",
+        "RESAMPLING": spec.overview_resampling.upper(),
+        "OVERVIEWS": "AUTO",
+        "NUM_THREADS": GDAL_THREADS,
     }
 
 
@@ -502,10 +527,10 @@ class RasterWriter:
         self.block_size = block_size
         self.compress = compress
         self.layout = layout
-        self.options = _creation_options(spec, compress, block_size)
+        self.options = creation_options(spec, compress, block_size)
         if layout == "cog":
             self.work_path = self.path.with_name(self.path.name + ".partial.tif")
-            options = {k: v for k, v in self.options.items() if k not in ("compress", "predictor")}
+            options = {k: v for k, v in self.options.items() if k not in ("compress", "predictor", "num_threads")}
         else:
             self.work_path = self.path
             options = self.options
@@ -587,15 +612,8 @@ class RasterWriter:
             ds.close()
             return
         ds.close()
-        rasterio.shutil.copy(
-            self.work_path, self.path, driver="COG",
-            COMPRESS=self.compress.upper(),
-            PREDICTOR="FLOATING_POINT" if np.dtype(self.spec.dtype).kind == "f" else "STANDARD",
-            BLOCKSIZE=self.block_size,
-            BIGTIFF="IF_SAFER",
-            RESAMPLING=self.spec.overview_resampling.upper(),
-            OVERVIEWS="AUTO",
-        )
+        rasterio.shutil.copy(self.work_path, self.path, driver="COG",
+                             **cog_options(self.spec, self.compress, self.block_size))
         self.work_path.unlink()
 
     def abort(self) -> None:
