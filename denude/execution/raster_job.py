@@ -35,7 +35,7 @@ from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.core.constants import MINERAL_INDEX
 from denude.core.dissolution import warn_out_of_range
 from denude.core.hazard import DEFAULT_COLOURS, HAZARD_NODATA, classify
-from denude.core.kernel import BlockCounts, compute_block
+from denude.core.kernel import BlockCounts, compute_block, warm_up
 from denude.core.rates import runoff_from_water_balance_mm_per_yr, zero_negative_runoff_mm_per_yr
 from denude.core.rocks import RockTable
 from denude.core.soil_co2 import air_pressure_atm, log10_atm_to_atm, pco2_from_aet_atm, ppmv_to_atm
@@ -688,6 +688,8 @@ def run_map(settings: MapSettings, progress: Callable[[int, int], None] | None =
 
 
 def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
+    # load table and compiled loop get ready while the inputs are validated
+    threading.Thread(target=warm_up, args=(settings.chemistry,), name="denude-warm-up", daemon=True).start()
     report = _inspect_job(settings, for_output=True, scan=False)
     grid = report.grid
     out = Path(settings.out).resolve()
