@@ -132,17 +132,23 @@ def floor_run(paths: dict, out: Path) -> None:
                 ds.close()
 
 
-def timed(cmd: list) -> tuple[float, int]:
-    """Wall time (s) and peak RSS (bytes) of a subprocess running ``cmd`` via the memory shim."""
+def timed(cmd: list) -> tuple[float, int, float]:
+    """Wall time (s), peak RSS (bytes) and CPU time (user + system, s) of a subprocess running
+    ``cmd`` via the memory shim. CPU time is the steadier figure on a shared machine."""
+    import resource
+
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
     proc = subprocess.run([sys.executable, str(HERE), "--internal", json.dumps(cmd)],
                           capture_output=True, text=True)
     wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
     if proc.returncode != 0:
         sys.stderr.write(proc.stdout + proc.stderr)
         raise SystemExit(f"benchmark step failed: {cmd}")
     peak = int(proc.stdout.strip().splitlines()[-1])
-    return wall, peak
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return wall, peak, cpu
 
 
 def internal(cmd: list) -> None:
@@ -197,25 +203,27 @@ def main() -> None:
                 for name, cmd in steps.items():
                     shutil.rmtree(work / "out", ignore_errors=True)
                     runs[name].append(timed(cmd))
-                    print(f"  {size:>5}^2 run {i + 1} {name:>5}: {runs[name][-1][0]:6.1f} s, "
-                          f"peak RSS {runs[name][-1][1] / 2**20:5.0f} MiB", flush=True)
-            best = {name: min(w for w, _ in r) for name, r in runs.items()}
-            spread = {name: max(w for w, _ in r) / min(w for w, _ in r) for name, r in runs.items()}
+                    wall, peak, cpu = runs[name][-1]
+                    print(f"  {size:>5}^2 run {i + 1} {name:>5}: {wall:6.1f} s wall, {cpu:6.1f} s CPU, "
+                          f"peak RSS {peak / 2**20:5.0f} MiB", flush=True)
+            best = {name: min(w for w, _, _ in r) for name, r in runs.items()}
+            cpu = {name: min(c for _, _, c in r) for name, r in runs.items()}
+            spread = {name: max(w for w, _, _ in r) / min(w for w, _, _ in r) for name, r in runs.items()}
             pairs = [m[0] / f[0] for f, m in zip(runs["floor"], runs["map"])]
-            rows.append((size, best["floor"], best["map"], best["map"] / best["floor"], min(pairs), max(pairs),
-                         spread, max(p for _, p in runs["map"])))
+            rows.append((size, best, cpu, min(pairs), max(pairs), spread, max(p for _, p, _ in runs["map"])))
         print()
-        print("  size    floor      map   map/floor (best of each; per-pair range)   map peak RSS")
-        for size, floor, mapped, ratio, lo, hi, spread, peak in rows:
-            print(f"{size:>6}^2 {floor:7.1f} s {mapped:7.1f} s   {ratio:5.2f}  ({lo:.2f}-{hi:.2f}; runs spread "
-                  f"floor {100 * (spread['floor'] - 1):.0f} %, map {100 * (spread['map'] - 1):.0f} %)   {peak / 2**20:5.0f} MiB")
-        print("target: map / floor <= 1.15")
+        print("  size   floor    map  map/floor  (per-pair range; spread of runs)      CPU floor   map  ratio   map RSS")
+        for size, best, cpu, lo, hi, spread, peak in rows:
+            print(f"{size:>6}^2 {best['floor']:6.1f} {best['map']:6.1f}   {best['map'] / best['floor']:5.2f}     "
+                  f"({lo:.2f}-{hi:.2f}; floor {100 * (spread['floor'] - 1):3.0f} %, map {100 * (spread['map'] - 1):3.0f} %)"
+                  f"   {cpu['floor']:6.1f} {cpu['map']:6.1f}  {cpu['map'] / cpu['floor']:5.2f}   {peak / 2**20:5.0f} MiB")
+        print("wall times in s, best of each; target: map / floor <= 1.15 (wall)")
         sizes = [int(s) for s in args.mem_sizes.split(",") if s.strip()]
         peaks = []
         for size in sizes:
             p = make_inputs(work / f"in{size}", size)
             shutil.rmtree(work / "out", ignore_errors=True)
-            wall, peak = timed(map_cmd(p, work / "out", args.workers))
+            wall, peak, _ = timed(map_cmd(p, work / "out", args.workers))
             peaks.append(peak)
             print(f"memory {size:>6} x {size:<6}: peak RSS {peak / 2**20:6.0f} MiB (all outputs, {wall:.1f} s)")
         if len(peaks) == 2:
