@@ -449,8 +449,9 @@ def refuse_inputs_inside(paths: dict, out: Path, folder: str) -> None:
 #: glibc malloc tuning of a map process: blocks up to this size come from the heap, not from
 #: fresh mmap calls, and up to TRIM bytes of freed heap are kept for reuse. A window's arrays
 #: (2 MiB per 512 x 512 float64) then reuse freed memory instead of being mapped, faulted in
-#: page by page and unmapped again: measured with benchmarks/bench_map.py at 4096 x 4096, system
-#: time 4.8 -> 1.0 s and minor page faults 231 k -> 95 k, peak RSS unchanged.
+#: page by page and unmapped again. Measured on a map run at 4096 x 4096 (2026-12-02): minor
+#: page faults 205-211 k -> 102-116 k, system time 0.9 -> 0.8 s on a moderately loaded machine
+#: (4.8 -> 1.0 s in one pair of runs under heavy load), peak RSS within noise.
 MALLOC_MMAP_THRESHOLD_BYTES = 16 * 2**20
 MALLOC_TRIM_THRESHOLD_BYTES = 128 * 2**20
 
