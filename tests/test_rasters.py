@@ -195,6 +195,9 @@ def test_compression_threads_do_not_change_the_bytes(tmp_path, monkeypatch, layo
             writer.write(data[r:r + int(window.height), c:c + int(window.width)], window)
         files[threads] = writer.close().read_bytes()
     assert files["1"] == files["ALL_CPUS"]
+    with rasterio.Env(GDAL_NUM_THREADS="1"):   # a batch worker's setting wins over all cores
+        assert rasters.creation_options(spec, "deflate", 16)["num_threads"] == "1"
+        assert rasters.cog_options(spec, "deflate", 16)["NUM_THREADS"] == "1"
     with rasterio.open(tmp_path / "ALL_CPUS" / "rate.tif") as ds:
         np.testing.assert_array_equal(ds.read(1), data)
         assert ds.overviews(1) == rasters.overview_factors(64, 80, 16) == [2, 4, 8]

@@ -459,15 +459,24 @@ def choose_layout(layout: str, grid: Grid) -> str:
     return layout
 
 
-#: Threads GDAL compresses with (its NUM_THREADS creation option): every core. Compression
-#: runs blocks side by side and writes them in their fixed order, so the bytes of a file do
-#: not depend on it (checked in tests/test_rasters.py).
+#: Threads GDAL compresses with (its NUM_THREADS creation option): every core, unless the
+#: GDAL_NUM_THREADS config option is set (batch workers set it to 1: their processes already
+#: fill the cores). Compression runs blocks side by side and writes them in their fixed
+#: order, so the bytes of a file do not depend on it (checked in tests/test_rasters.py).
 GDAL_THREADS = "ALL_CPUS"
 
 
-def creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+def compression_threads() -> str:
+    """NUM_THREADS for output compression: GDAL_NUM_THREADS when configured, else GDAL_THREADS."""
+    from rasterio.env import get_gdal_config
+
+    configured = get_gdal_config("GDAL_NUM_THREADS")
+    return str(configured) if configured not in (None, "") else GDAL_THREADS
+
+
+def creation_options(spec: OutputSpec, compress: str, block_size: int, threads: str | None = None) -> dict:
     """GTiff creation options of a tiled output (compression, predictor, tiles, BigTIFF when
-    needed, compression threads)."""
+    needed, compression threads: ``threads`` or ``compression_threads()``)."""
     if compress not in COMPRESSIONS:
         raise InputError(f"compression {compress!r} is not known; use one of {', '.join(COMPRESSIONS)}")
     floating = np.dtype(spec.dtype).kind == "f"
@@ -478,11 +487,11 @@ def creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
         "blockxsize": block_size,
         "blockysize": block_size,
         "bigtiff": "IF_SAFER",
-        "num_threads": GDAL_THREADS,
+        "num_threads": threads or compression_threads(),
     }
 
 
-def cog_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+def cog_options(spec: OutputSpec, compress: str, block_size: int, threads: str | None = None) -> dict:
     """COG driver options of an output: the same compression, predictor and tiles as
     ``creation_options``, overviews made by the driver with the layer's resampling."""
     if compress not in COMPRESSIONS:
@@ -494,7 +503,7 @@ def cog_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
         "BIGTIFF": "IF_SAFER",
         "RESAMPLING": spec.overview_resampling.upper(),
         "OVERVIEWS": "AUTO",
-        "NUM_THREADS": GDAL_THREADS,
+        "NUM_THREADS": threads or compression_threads(),
     }
 
 
@@ -613,7 +622,7 @@ class RasterWriter:
             return
         ds.close()
         rasterio.shutil.copy(self.work_path, self.path, driver="COG",
-                             **cog_options(self.spec, self.compress, self.block_size))
+                             **cog_options(self.spec, self.compress, self.block_size, self.options["num_threads"]))
         self.work_path.unlink()
 
     def abort(self) -> None:
