@@ -1,15 +1,20 @@
-"""Benchmark of `denude map` against the I/O floor, and its peak memory at two sizes.
+"""Benchmark of `denude map` (all six layers) against a tight I/O floor, and its peak memory.
 
-    python benchmarks/bench_map.py                 # 8192 x 8192 timing, memory at 4096 and 16384
-    python benchmarks/bench_map.py --size 2048 --mem-sizes 1024,2048   # quick run
+    python benchmarks/bench_map.py                         # 4096 and 8192, best of 3; memory at 4096 and 16384
+    python benchmarks/bench_map.py --sizes 1024 --repeat 1 --mem-sizes ''   # quick run
 
-Measured in one run, side by side, each in a fresh subprocess:
-- floor: read the same inputs window by window (512 x 512) and write one float32 raster with
-  the same writer and creation options (tiled, DEFLATE, PREDICTOR=3, overviews, COG layout
-  where the job would use it), no computation;
-- map, rate only (``--layers denudation``) and with all outputs, through the CLI;
+Measured in one run, side by side, each step in a fresh subprocess, floor and map alternating:
+- floor: read the same inputs window by window (the same 512 x 512 windows, through the same
+  warping when an input's grid differs from the target grid) and write the same six layers
+  with the same creation options and overviews (COG up to 8192 x 8192 cells: an uncompressed
+  tiled intermediate, then GDAL's COG copy; larger: tiled GTiff plus internal overviews), GDAL
+  compressing on all cores (NUM_THREADS=ALL_CPUS), one layer after another, from the main
+  thread, no computation and no numba. Each layer is written from an input of its dtype
+  (rates from the float inputs, classes and codes from the lithology), so the bytes to
+  compress are of the same kind;
+- map: `denude map` with all outputs, through the CLI (`--workers 2`);
 - peak resident memory (ru_maxrss) of a full map run at two sizes.
-Targets: rate only <= 1.3 x floor; memory of the larger <= 1.2 x the smaller, both < 1 GB.
+Targets: map <= 1.15 x floor; memory of the larger <= 1.2 x the smaller, both < 1 GB.
 A script, not a test: it never runs in CI and prints figures rather than asserting on them.
 """
 
@@ -73,44 +78,77 @@ def make_inputs(folder: Path, size: int) -> dict:
     return paths
 
 
+#: Floor layer -> the input whose window it writes (cast to the layer's dtype).
+FLOOR_SOURCE = {"denudation": "runoff", "dissolved_load": "pco2", "co2_drawdown": "temperature",
+                "hazard": "lithology", "lithology": "lithology", "soluble_fraction": "lithology"}
+
+
 def floor_run(paths: dict, out: Path) -> None:
-    """Read every input window by window and write one float32 output, no computation."""
+    """Read every input window by window and write the six layers, no computation."""
     import rasterio
+    import rasterio.shutil
 
-    from denude.execution.blocks import block_windows
-    from denude.execution.raster_job import output_spec
+    from rasterio.windows import Window
+
     from denude.io.grid import Grid
-    from denude.io.jobfile import build_settings
-    from denude.io.rasters import RasterWriter, choose_layout
+    from denude.io.rasters import (RESAMPLING, GridReader, OutputSpec, choose_layout, cog_options,
+                                   creation_options, inspect_raster, overview_factors, plan_warp)
+    from denude.registry import INPUT_ROLES, OUTPUT_LAYERS
 
-    settings = build_settings({"lithology": str(paths["lithology"]), "runoff": str(paths["runoff"]),
-                               "pco2": str(paths["pco2"]), "temperature": str(paths["temperature"]),
-                               "out": str(out)})
     out.mkdir()
-    with rasterio.Env(GDAL_CACHEMAX=settings.gdal_cache_mb * 2**20):
-        sources = {role: rasterio.open(p) for role, p in paths.items()}
-        grid = Grid.from_dataset(sources["lithology"])
-        writer = RasterWriter(out / "denudation_mm_per_kyr.tif", grid, output_spec("denudation", settings),
-                              BLOCK, "deflate", choose_layout("auto", grid))
-        for window in block_windows(grid.height, grid.width, BLOCK):
-            arrays = [ds.read(1, window=window) for ds in sources.values()]
-            writer.write(arrays[1], window)
-        writer.close()
-        for ds in sources.values():
-            ds.close()
+    with rasterio.Env(GDAL_CACHEMAX=128 * 2**20):    # the job's default block cache
+        with rasterio.open(paths["lithology"]) as ds:
+            grid = Grid.from_dataset(ds)
+        layout = choose_layout("auto", grid)
+        readers = {role: GridReader(plan_warp(inspect_raster(p, role), grid, INPUT_ROLES[role].categorical), grid)
+                   for role, p in paths.items()}
+        files = {}
+        for name, info in OUTPUT_LAYERS.items():
+            spec = OutputSpec(info.file, info.dtype, info.nodata, info.overview_resampling)
+            options = creation_options(spec, "deflate", BLOCK)
+            path = out / info.file
+            if layout == "cog":   # the COG driver only copies: an uncompressed intermediate first
+                path = out / (info.file + ".partial.tif")
+                options = {k: v for k, v in options.items() if k not in ("compress", "predictor", "num_threads")}
+            ds = rasterio.open(path, "w", driver="GTiff", width=grid.width, height=grid.height, count=1,
+                               dtype=info.dtype, crs=grid.crs, transform=grid.affine, nodata=info.nodata, **options)
+            files[name] = (spec, path, ds)
+        windows = [Window(col, row, min(BLOCK, grid.width - col), min(BLOCK, grid.height - row))
+                   for row in range(0, grid.height, BLOCK) for col in range(0, grid.width, BLOCK)]
+        for window in windows:   # the job's windows (denude.execution.blocks), without importing numba
+            arrays = {role: reader.read(window) for role, reader in readers.items()}
+            for name, (spec, _, ds) in files.items():
+                ds.write(arrays[FLOOR_SOURCE[name]].astype(spec.dtype, copy=False), 1, window=window)
+        for reader in readers.values():
+            reader.close()
+        for name, (spec, path, ds) in files.items():
+            if layout == "cog":
+                ds.close()
+                rasterio.shutil.copy(path, out / spec.name, driver="COG", **cog_options(spec, "deflate", BLOCK))
+                path.unlink()
+            else:
+                ds.build_overviews(overview_factors(grid.height, grid.width, BLOCK),
+                                   RESAMPLING[spec.overview_resampling])
+                ds.close()
 
 
-def timed(cmd: list) -> tuple[float, int]:
-    """Wall time (s) and peak RSS (bytes) of a subprocess running ``cmd`` via the memory shim."""
+def timed(cmd: list) -> tuple[float, int, float]:
+    """Wall time (s), peak RSS (bytes) and CPU time (user + system, s) of a subprocess running
+    ``cmd`` via the memory shim. CPU time is the steadier figure on a shared machine."""
+    import resource
+
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
     proc = subprocess.run([sys.executable, str(HERE), "--internal", json.dumps(cmd)],
                           capture_output=True, text=True)
     wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
     if proc.returncode != 0:
         sys.stderr.write(proc.stdout + proc.stderr)
         raise SystemExit(f"benchmark step failed: {cmd}")
     peak = int(proc.stdout.strip().splitlines()[-1])
-    return wall, peak
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return wall, peak, cpu
 
 
 def internal(cmd: list) -> None:
@@ -130,16 +168,16 @@ def internal(cmd: list) -> None:
     print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)
 
 
-def map_cmd(paths: dict, out: Path, workers: int, layers: str | None) -> list:
-    cmd = ["map", "--lithology", str(paths["lithology"]), "--runoff", str(paths["runoff"]),
-           "--pco2", str(paths["pco2"]), "--temperature", str(paths["temperature"]), "--out", str(out),
-           "--workers", str(workers), "--quiet"]
-    return cmd + (["--layers", layers] if layers else [])
+def map_cmd(paths: dict, out: Path, workers: int) -> list:
+    return ["map", "--lithology", str(paths["lithology"]), "--runoff", str(paths["runoff"]),
+            "--pco2", str(paths["pco2"]), "--temperature", str(paths["temperature"]), "--out", str(out),
+            "--workers", str(workers), "--quiet"]
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--size", type=int, default=8192, help="cells per side for the timing runs")
+    parser.add_argument("--sizes", default="4096,8192", help="cells per side for the timing runs")
+    parser.add_argument("--repeat", type=int, default=3, help="runs of each contender per size (best kept)")
     parser.add_argument("--mem-sizes", default="4096,16384", help="two sizes for the memory runs ('' to skip)")
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--folder", default=None, help="working folder (default: a temporary one)")
@@ -151,33 +189,47 @@ def main() -> None:
         return
     work = Path(args.folder or tempfile.mkdtemp(prefix="denude-bench-"))
     try:
-        t0 = time.perf_counter()
-        paths = make_inputs(work / f"in{args.size}", args.size)
-        print(f"inputs {args.size} x {args.size}: generated in {time.perf_counter() - t0:.1f} s")
-        results = {}
-        for name, cmd in (
-            ("floor", ["floor", json.dumps({k: str(v) for k, v in paths.items()}), str(work / "floor")]),
-            ("map rate only", map_cmd(paths, work / "rate", args.workers, "denudation")),
-            ("map all outputs", map_cmd(paths, work / "all", args.workers, None)),
-        ):
-            for folder in ("floor", "rate", "all"):
-                shutil.rmtree(work / folder, ignore_errors=True)
-            results[name] = timed(cmd)
-            print(f"{name:>16}: {results[name][0]:7.1f} s, peak RSS {results[name][1] / 2**20:6.0f} MiB")
-        floor = results["floor"][0]
-        print(f"ratio rate only / floor: {results['map rate only'][0] / floor:.2f} (target <= 1.3)")
-        print(f"ratio all outputs / floor: {results['map all outputs'][0] / floor:.2f}")
+        rows = []
+        for size in [int(s) for s in args.sizes.split(",") if s.strip()]:
+            t0 = time.perf_counter()
+            paths = make_inputs(work / f"in{size}", size)
+            print(f"inputs {size} x {size}: ready in {time.perf_counter() - t0:.1f} s")
+            steps = {
+                "floor": ["floor", json.dumps({k: str(v) for k, v in paths.items()}), str(work / "out")],
+                "map": map_cmd(paths, work / "out", args.workers),
+            }
+            runs: dict = {name: [] for name in steps}
+            for i in range(args.repeat):      # alternate, so both meet the same load
+                for name, cmd in steps.items():
+                    shutil.rmtree(work / "out", ignore_errors=True)
+                    runs[name].append(timed(cmd))
+                    wall, peak, cpu = runs[name][-1]
+                    print(f"  {size:>5}^2 run {i + 1} {name:>5}: {wall:6.1f} s wall, {cpu:6.1f} s CPU, "
+                          f"peak RSS {peak / 2**20:5.0f} MiB", flush=True)
+            best = {name: min(w for w, _, _ in r) for name, r in runs.items()}
+            cpu = {name: min(c for _, _, c in r) for name, r in runs.items()}
+            spread = {name: max(w for w, _, _ in r) / min(w for w, _, _ in r) for name, r in runs.items()}
+            pairs = [m[0] / f[0] for f, m in zip(runs["floor"], runs["map"])]
+            rows.append((size, best, cpu, min(pairs), max(pairs), spread, max(p for _, p, _ in runs["map"])))
+        print()
+        print("  size   floor    map  map/floor  (per-pair range; spread of runs)      CPU floor   map  ratio   map RSS")
+        for size, best, cpu, lo, hi, spread, peak in rows:
+            print(f"{size:>6}^2 {best['floor']:6.1f} {best['map']:6.1f}   {best['map'] / best['floor']:5.2f}     "
+                  f"({lo:.2f}-{hi:.2f}; floor {100 * (spread['floor'] - 1):3.0f} %, map {100 * (spread['map'] - 1):3.0f} %)"
+                  f"   {cpu['floor']:6.1f} {cpu['map']:6.1f}  {cpu['map'] / cpu['floor']:5.2f}   {peak / 2**20:5.0f} MiB")
+        print("wall times in s, best of each; target: map / floor <= 1.15 (wall)")
         sizes = [int(s) for s in args.mem_sizes.split(",") if s.strip()]
         peaks = []
         for size in sizes:
             p = make_inputs(work / f"in{size}", size)
-            shutil.rmtree(work / "mem", ignore_errors=True)
-            wall, peak = timed(map_cmd(p, work / "mem", args.workers, None))
+            shutil.rmtree(work / "out", ignore_errors=True)
+            wall, peak, _ = timed(map_cmd(p, work / "out", args.workers))
             peaks.append(peak)
             print(f"memory {size:>6} x {size:<6}: peak RSS {peak / 2**20:6.0f} MiB (all outputs, {wall:.1f} s)")
         if len(peaks) == 2:
             print(f"ratio peak {sizes[1]} / {sizes[0]}: {peaks[1] / peaks[0]:.2f} (target <= 1.2; both < 1024 MiB)")
     finally:
+        shutil.rmtree(work / "out", ignore_errors=True)
         if not args.keep and args.folder is None:
             shutil.rmtree(work, ignore_errors=True)
 

@@ -190,3 +190,51 @@ def test_insoluble_rock_is_zero_whatever_the_climate():
         assert r.denudation_mm_per_kyr[0] == 0 and r.denudation_mm_per_kyr[1] == 0
         assert np.isnan(r.denudation_mm_per_kyr[2])
         assert r.counts.out_of_range == 1 and r.counts.computed == 2
+
+
+def test_load_tables_built_once_when_threads_ask_together(monkeypatch):
+    """Worker threads asking for the tables at the same moment share one build."""
+    import threading
+
+    from denude.core import lookup
+    from denude.core.constants import MINERALS
+
+    lookup._stacked_tables.cache_clear()
+    built = []
+    original = lookup.load_table
+
+    def counting(mineral, chemistry):
+        built.append(mineral)
+        return original(mineral, chemistry)
+
+    monkeypatch.setattr(lookup, "load_table", counting)
+    start = threading.Barrier(4)
+    results = []
+
+    def ask():
+        start.wait()
+        results.append(lookup.stacked_tables("white"))
+
+    threads = [threading.Thread(target=ask) for _ in range(4)]
+    for th in threads:
+        th.start()
+    for th in threads:
+        th.join()
+    assert len(built) == len(MINERALS) - 1          # one table per soluble mineral, once
+    assert all(r[0] is results[0][0] for r in results)
+    lookup._stacked_tables.cache_clear()
+
+
+def test_warm_up_on_a_thread_loads_the_serial_build():
+    """warm_up() from a worker thread leaves the serial loop compiled for a map window's
+    dtypes (int32 codes, float64 inputs), so the first window of a run finds it ready."""
+    import threading
+
+    from denude.core import fast_kernel
+    from denude.core.kernel import warm_up
+
+    th = threading.Thread(target=warm_up, args=("white",))
+    th.start()
+    th.join()
+    kinds = {(str(sig[0].dtype), str(sig[2].dtype)) for sig in fast_kernel.cell_loop_serial.signatures}
+    assert ("int32", "float64") in kinds

@@ -165,3 +165,40 @@ def test_overview_factors_stop_at_one_tile():
     assert overview_factors(64, 48, 16) == [2, 4]      # 64 -> 32 -> 16 (one tile)
     assert overview_factors(16, 16, 16) == []
     assert overview_factors(8192, 8192, 512) == [2, 4, 8, 16]
+
+
+@pytest.mark.parametrize("layout", ["cog", "tiled"])
+def test_compression_threads_do_not_change_the_bytes(tmp_path, monkeypatch, layout):
+    """GDAL compresses blocks on several threads (NUM_THREADS) but writes them in a fixed
+    order: one thread and all cores give the same file, byte for byte."""
+    from rasterio.transform import from_origin
+
+    from denude.io import rasters
+    from denude.io.rasters import OutputSpec, RasterWriter
+
+    grid = Grid(rasterio.crs.CRS.from_epsg(32632).to_wkt(), tuple(from_origin(500000.0, 5200000.0, 10.0, 10.0))[:6],
+                80, 64)
+    rng = np.random.default_rng(3)
+    data = (np.linspace(0, 50, 80)[None, :] + rng.normal(0, 1, (64, 80))).astype(np.float32)
+    spec = OutputSpec("rate.tif", "float32", float("nan"), "average", tags=(("units", "mm/kyr"),))
+    files = {}
+    for threads in ("1", "ALL_CPUS"):
+        monkeypatch.setattr(rasters, "GDAL_THREADS", threads)
+        options = rasters.creation_options(spec, "deflate", 16)
+        assert options["num_threads"] == threads
+        assert rasters.cog_options(spec, "deflate", 16)["NUM_THREADS"] == threads
+        folder = tmp_path / threads
+        folder.mkdir()
+        writer = RasterWriter(folder / "rate.tif", grid, spec, 16, "deflate", layout)
+        for window in block_windows(64, 80, 16):
+            r, c = int(window.row_off), int(window.col_off)
+            writer.write(data[r:r + int(window.height), c:c + int(window.width)], window)
+        files[threads] = writer.close().read_bytes()
+    assert files["1"] == files["ALL_CPUS"]
+    with rasterio.Env(GDAL_NUM_THREADS="1"):   # a batch worker's setting wins over all cores
+        assert rasters.creation_options(spec, "deflate", 16)["num_threads"] == "1"
+        assert rasters.cog_options(spec, "deflate", 16)["NUM_THREADS"] == "1"
+    with rasterio.open(tmp_path / "ALL_CPUS" / "rate.tif") as ds:
+        np.testing.assert_array_equal(ds.read(1), data)
+        assert ds.overviews(1) == rasters.overview_factors(64, 80, 16) == [2, 4, 8]
+        assert ds.compression.name == "deflate"

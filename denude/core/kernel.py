@@ -271,6 +271,23 @@ def _compute_block_table(lithology_codes, runoff_mm_per_yr, pco2_atm, temperatur
     return BlockResult(rate.reshape(shape), load.reshape(shape), co2.reshape(shape), counts)
 
 
+def warm_up(chemistry: str = "white") -> None:
+    """Build the load table of ``chemistry`` and load the compiled cell loop (from numba's
+    on-disk cache) by computing one cell, so that the first block of a run does not pay for
+    them. Called from a worker thread it loads the serial build, the one worker threads use;
+    the dtypes (int32 codes, float64 inputs) are those of a map window. A run starts it on a
+    thread of its own while it validates inputs. Errors are left to the real call."""
+    from denude.core.rocks import RockTable
+
+    try:
+        rocks = RockTable.builtin().lookup()
+        one = np.ones(1)
+        compute_block(rocks.codes[:1].astype(np.int32), 500.0 * one, 0.01 * one, 10.0 * one, rocks, chemistry,
+                      lithology_valid=np.ones(1, bool), warn=False)
+    except Exception:  # pragma: no cover - the same call fails again, with its message, in the run
+        pass
+
+
 _MOLAR_MASS_BY_INDEX = np.array([MOLAR_MASS_G_PER_MOL[m] for m in MINERALS], dtype=np.float64)
 _CO2_BY_INDEX = np.array([CO2_PER_MOL[m] for m in MINERALS], dtype=np.float64)
 #: Codes spanning more than this use a sparse table (searchsorted) instead of a dense one.

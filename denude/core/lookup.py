@@ -13,6 +13,7 @@ Cells with PCO2 below the table (< 1e-8 atm) are left to the direct solver by th
 from __future__ import annotations
 
 import functools
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -78,11 +79,22 @@ def load_table(mineral: str, chemistry: str) -> LoadTable:
     return LoadTable(np.log10(load), TEMPERATURE_MIN_C, TEMPERATURE_STEP_C, LOG_PCO2_MIN, LOG_PCO2_STEP)
 
 
-@functools.lru_cache(maxsize=None)
+#: Held while tables are built: worker threads asking at once wait for one build instead of
+#: each building its own copy (lru_cache alone does not prevent that).
+_BUILD_LOCK = threading.Lock()
+
+
 def stacked_tables(chemistry: str) -> tuple[np.ndarray, tuple[float, float, float, float]]:
     """Loads [mol/L] (not their logs) of all minerals stacked by mineral index (0 = insoluble,
     all zero), for the compiled kernel: interpolating the load linearly between log10 PCO2
-    nodes 0.02 apart adds at most (ln 10 / 3)^2 h^2 / 8 = 3e-5 relative error (derived)."""
+    nodes 0.02 apart adds at most (ln 10 / 3)^2 h^2 / 8 = 3e-5 relative error (derived).
+    Built once per process and chemistry, whichever thread asks first."""
+    with _BUILD_LOCK:
+        return _stacked_tables(chemistry)
+
+
+@functools.lru_cache(maxsize=None)
+def _stacked_tables(chemistry: str) -> tuple[np.ndarray, tuple[float, float, float, float]]:
     from denude.core.constants import MINERALS
 
     tables = [load_table(m, chemistry) for m in MINERALS[1:]]

@@ -201,18 +201,34 @@ class InputReaders:
         self._open.clear()
 
 
+#: glibc malloc tuning of a map process: blocks up to this size come from the heap, not from
+#: fresh mmap calls, and up to TRIM bytes of freed heap are kept for reuse. A window's arrays
+#: (2 MiB per 512 x 512 float64) then reuse freed memory instead of being mapped, faulted in
+#: page by page and unmapped again. Measured on a map run at 4096 x 4096 (2026-12-02): minor
+#: page faults 205-211 k -> 102-116 k, system time 0.9 -> 0.8 s on a moderately loaded machine,
+#: peak RSS within noise.
+MALLOC_MMAP_THRESHOLD_BYTES = 16 * 2**20
+MALLOC_TRIM_THRESHOLD_BYTES = 128 * 2**20
+
+
 def limit_malloc_arenas(arenas: int = 2) -> None:
-    """Cap glibc's malloc arenas for this process (Linux only; a no-op elsewhere).
+    """Cap glibc's malloc arenas for this process and keep freed blocks for reuse (Linux only;
+    a no-op elsewhere).
 
     glibc gives busy threads their own arenas, and the numpy blocks freed in each stay
     resident, so peak memory grows with the number of threads. Measured with
-    benchmarks/bench_map.py: about 20 % lower peak RSS for a map run. Call it before
-    starting threads; it is process-wide, so the CLI (which owns the process) calls it.
+    benchmarks/bench_map.py: about 20 % lower peak RSS for a map run. The mmap and trim
+    thresholds are fixed (MALLOC_MMAP_THRESHOLD_BYTES, MALLOC_TRIM_THRESHOLD_BYTES) so window
+    arrays reuse freed heap. Call it before starting threads; it is process-wide, so the CLI
+    (which owns the process) calls it.
     """
     if not sys.platform.startswith("linux"):
         return
     try:
-        ctypes.CDLL("libc.so.6").mallopt(-8, int(arenas))  # -8 = M_ARENA_MAX
+        libc = ctypes.CDLL("libc.so.6")
+        libc.mallopt(-8, int(arenas))                         # M_ARENA_MAX
+        libc.mallopt(-3, int(MALLOC_MMAP_THRESHOLD_BYTES))    # M_MMAP_THRESHOLD
+        libc.mallopt(-1, int(MALLOC_TRIM_THRESHOLD_BYTES))    # M_TRIM_THRESHOLD
     except (OSError, AttributeError):  # pragma: no cover - not glibc
         pass
 

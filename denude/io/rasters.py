@@ -591,7 +591,24 @@ def choose_layout(layout: str, grid: Grid) -> str:
     return layout
 
 
-def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
+#: Threads GDAL compresses with (its NUM_THREADS creation option): every core, unless the
+#: GDAL_NUM_THREADS config option is set (batch workers set it to 1: their processes already
+#: fill the cores). Compression runs blocks side by side and writes them in their fixed
+#: order, so the bytes of a file do not depend on it (checked in tests/test_rasters.py).
+GDAL_THREADS = "ALL_CPUS"
+
+
+def compression_threads() -> str:
+    """NUM_THREADS for output compression: GDAL_NUM_THREADS when configured, else GDAL_THREADS."""
+    from rasterio.env import get_gdal_config
+
+    configured = get_gdal_config("GDAL_NUM_THREADS")
+    return str(configured) if configured not in (None, "") else GDAL_THREADS
+
+
+def creation_options(spec: OutputSpec, compress: str, block_size: int, threads: str | None = None) -> dict:
+    """GTiff creation options of a tiled output (compression, predictor, tiles, BigTIFF when
+    needed, compression threads: ``threads`` or ``compression_threads()``)."""
     if compress not in COMPRESSIONS:
         raise InputError(f"compression {compress!r} is not known; use one of {', '.join(COMPRESSIONS)}")
     floating = np.dtype(spec.dtype).kind == "f"
@@ -602,6 +619,23 @@ def _creation_options(spec: OutputSpec, compress: str, block_size: int) -> dict:
         "blockxsize": block_size,
         "blockysize": block_size,
         "bigtiff": "IF_SAFER",
+        "num_threads": threads or compression_threads(),
+    }
+
+
+def cog_options(spec: OutputSpec, compress: str, block_size: int, threads: str | None = None) -> dict:
+    """COG driver options of an output: the same compression, predictor and tiles as
+    ``creation_options``, overviews made by the driver with the layer's resampling."""
+    if compress not in COMPRESSIONS:
+        raise InputError(f"compression {compress!r} is not known; use one of {', '.join(COMPRESSIONS)}")
+    return {
+        "COMPRESS": compress.upper(),
+        "PREDICTOR": "FLOATING_POINT" if np.dtype(spec.dtype).kind == "f" else "STANDARD",
+        "BLOCKSIZE": block_size,
+        "BIGTIFF": "IF_SAFER",
+        "RESAMPLING": spec.overview_resampling.upper(),
+        "OVERVIEWS": "AUTO",
+        "NUM_THREADS": threads or compression_threads(),
     }
 
 
@@ -634,10 +668,10 @@ class RasterWriter:
         self.block_size = block_size
         self.compress = compress
         self.layout = layout
-        self.options = _creation_options(spec, compress, block_size)
+        self.options = creation_options(spec, compress, block_size)
         if layout == "cog":
             self.work_path = self.path.with_name(self.path.name + ".partial.tif")
-            options = {k: v for k, v in self.options.items() if k not in ("compress", "predictor")}
+            options = {k: v for k, v in self.options.items() if k not in ("compress", "predictor", "num_threads")}
         else:
             self.work_path = self.path
             options = self.options
@@ -728,15 +762,8 @@ class RasterWriter:
             write_category_names(self.path, list(self.spec.categories))
             return
         ds.close()
-        rasterio.shutil.copy(
-            self.work_path, self.path, driver="COG",
-            COMPRESS=self.compress.upper(),
-            PREDICTOR="FLOATING_POINT" if np.dtype(self.spec.dtype).kind == "f" else "STANDARD",
-            BLOCKSIZE=self.block_size,
-            BIGTIFF="IF_SAFER",
-            RESAMPLING=self.spec.overview_resampling.upper(),
-            OVERVIEWS="AUTO",
-        )
+        rasterio.shutil.copy(self.work_path, self.path, driver="COG",
+                             **cog_options(self.spec, self.compress, self.block_size, self.options["num_threads"]))
         self.work_path.unlink()
         write_category_names(self.path, list(self.spec.categories))
 
