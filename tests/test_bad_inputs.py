@@ -346,10 +346,10 @@ SUMMARIZE_CASES = [
 
 BATCH_CASES = [
     Case("batch-tile-size-odd", lambda e: e.batch_args(extra=("--tile-size", "20")), ("20", "16")),
-    Case("batch-runoff-text", lambda e: e.batch_args(runoff=e.text("notes.tif")), ("notes.tif", "not a readable raster"), xfail=OUTDIR_HELPER),
-    Case("batch-runoff-truncated", lambda e: e.batch_args(runoff=e.truncated("cut.tif")), ("cut.tif", "runoff"), xfail=OUTDIR_HELPER),
+    Case("batch-runoff-text", lambda e: e.batch_args(runoff=e.text("notes.tif")), ("notes.tif", "not a readable raster")),
+    Case("batch-runoff-truncated", lambda e: e.batch_args(runoff=e.truncated("cut.tif")), ("cut.tif", "runoff")),
     Case("batch-zones-missing", lambda e: e.batch_args(extra=("--zones", e.inputs / "gone.gpkg")), ("gone.gpkg", "not found")),
-    Case("batch-zones-text", lambda e: e.batch_args(extra=("--zones", e.text("z.gpkg"))), ("z.gpkg", "not a readable vector file"), xfail=OUTDIR_HELPER),
+    Case("batch-zones-text", lambda e: e.batch_args(extra=("--zones", e.text("z.gpkg"))), ("z.gpkg", "not a readable vector file")),
     Case("batch-retries-negative", lambda e: e.batch_args(extra=("--retries", "-3")), ("-3", "retries")),
     Case("batch-workers-huge", lambda e: e.batch_args(extra=("--workers", "5000")), ("5000", "workers")),
     Case("batch-scheduler-garbage", lambda e: e.batch_args(extra=("--scheduler", "not an address at all")), ("not an address at all", "scheduler")),

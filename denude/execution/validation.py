@@ -227,13 +227,13 @@ def inspect_job(settings: MapSettings, for_output: bool = True) -> JobReport:
 
 
 def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: str | None = None,
-                 tolerant: bool = False) -> JobReport:
+                 tolerant=False) -> JobReport:
     """The rule book. ``scan``: read every block for codes and refuse inputs without valid
     cells (`check`); else codes are scanned only for a float lithology (a run checks every
     window as it goes). ``values``: 'decimated' (a reduced whole read; default with ``scan``)
     or 'sample' (a lattice of small windows; default otherwise). ``tolerant``: unreadable
-    pixels are left to the windows that touch them (a batch reports them per tile).
-    Each input is opened once."""
+    pixels are left to the windows that touch them (a batch reports them per tile); True for
+    every input, or a set of the roles read so (a batch's mosaics). Each input is opened once."""
     values = values or ("decimated" if scan else "sample")
     rocks = load_rocks(settings)
     roles = raster_roles(settings)
@@ -253,10 +253,15 @@ def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: st
             ds = lithology if role == "lithology" else stack.enter_context(open_raster(path, role))
             if role != "lithology":
                 _choose_unit(report, role, ds, path)
-            report.inputs[role] = _check_raster(report, role, path, ds, values, scan, tolerant)
+            report.inputs[role] = _check_raster(report, role, path, ds, values, scan, _tolerant(tolerant, role))
         _check_units_together(report)
-        _check_codes(report, lithology, scan, tolerant, values)
+        _check_codes(report, lithology, scan, _tolerant(tolerant, "lithology"), values)
     return report
+
+
+def _tolerant(tolerant, role: str) -> bool:
+    """Whether ``role`` is read tolerantly under ``validate_job``'s ``tolerant`` (a bool or a set of roles)."""
+    return tolerant if isinstance(tolerant, bool) else role in tolerant
 
 
 def _choose_unit(report: JobReport, role: str, ds, path) -> UnitChoice:
