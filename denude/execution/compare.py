@@ -25,7 +25,7 @@ from denude.execution.blocks import block_windows
 from denude.execution.validation import refuse_inputs_inside
 from denude.io.grid import Grid, cell_area_method
 from denude.io.map_folder import output_file, read_layer
-from denude.io.outdir import check_new_folder, commit_dir, make_staging_dir, remove_path
+from denude.io.outdir import check_new_folder, commit_dir, make_staging_dir, raise_discarded
 from denude.io.rasters import OutputSpec, RasterWriter, choose_layout
 from denude.reports.run_record import RUN_RECORD, write_run_record
 from denude.execution.summaries import zone_partials
@@ -160,11 +160,10 @@ def run_compare(base_dir, scenario_dir, out, zones=None, overwrite: bool = False
                 record["zones"] = {"path": zones.path, "layer": zones.layer, "id_field": zones.id_field}
             write_run_record(staging / RUN_RECORD, record)
             commit_dir(staging, out, overwrite)
-        except BaseException:
+        except BaseException as exc:
             for writer in writers.values():
                 writer.abort()
-            remove_path(staging)
-            raise
+            raise_discarded([(staging, out)], exc)
     finally:
         for ds in datasets:
             ds.close()
