@@ -48,7 +48,7 @@ from denude.execution.manifest import (
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 from denude.io.mosaic import mosaic_kind, write_mosaic_vrt
-from denude.io.outdir import check_new_folder, discard_folder, remove_path
+from denude.io.outdir import check_new_folder, discard_folder, remove_dead_staging, remove_path
 from denude.io.rasters import choose_layout
 from denude.io.vectors import read_points
 from denude.registry import INPUT_ROLES, OUTPUT_LAYERS, PCO2_FROM_AET, ZONE_LAYERS
@@ -437,9 +437,11 @@ def run_batch(
     if dry_run:
         return _dry_run(job)
     checked = validate_inputs(job)       # before OUTDIR is created (or an old one replaced)
+    remove_dead_staging(job.out.parent)
     manifest = _prepare_out_dir(job.out, job.key, settings.overwrite)
     job.out.mkdir(exist_ok=True)
     with _Lock(job.out):
+        remove_dead_staging(job.out)     # e.g. a merged-layer folder of a killed run
         job.plan(manifest, checked)
         job.run_tiles()
         summary = job.finish(started)

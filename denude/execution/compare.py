@@ -25,7 +25,7 @@ from denude.execution.blocks import block_windows
 from denude.execution.validation import refuse_inputs_inside
 from denude.io.grid import Grid, cell_area_method
 from denude.io.map_folder import output_file, read_layer
-from denude.io.outdir import check_new_folder, commit_dir, make_staging_dir, raise_discarded
+from denude.io.outdir import check_new_folder, commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
 from denude.io.rasters import OutputSpec, RasterWriter, choose_layout
 from denude.reports.run_record import RUN_RECORD, write_run_record
 from denude.execution.summaries import zone_partials
@@ -127,6 +127,7 @@ def run_compare(base_dir, scenario_dir, out, zones=None, overwrite: bool = False
         check_same_grid(a_rate, a_co2, f"{base / RATE}", f"{base / CO2}")
         check_same_grid(a_rate, b_co2, f"{base / RATE}", f"{scenario / CO2}")
         grid = Grid.from_dataset(a_rate)
+        remove_dead_staging(out.parent)
         staging = make_staging_dir(out)
         writers = {}
         try:

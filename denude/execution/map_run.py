@@ -21,7 +21,7 @@ from denude.execution.validation import check_window, validate_job, warn_about_c
 from denude.execution.window import WindowResult, run_window
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
-from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded
+from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
 from denude.io.rasters import RasterWriter
 from denude.io.layer_meta import write_map_styles
 from denude.io.rock_csv import write_rock_table
@@ -67,6 +67,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     layers = [name for name in OUTPUT_LAYERS if name in settings.layers]
     hashes = HashJob(hashed_paths(settings, report))
     plan = plan_from_report(report)
+    remove_dead_staging(out.parent)     # leftovers of killed runs (their owner process is gone)
     staging = make_staging_dir(out)
     writers: dict = {}
     readers = _ThreadReaders(plan)

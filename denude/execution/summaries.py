@@ -50,7 +50,7 @@ from denude.io.map_folder import (
     CO2_TIF, COVER_TIF, HAZARD_TIF, LITHOLOGY_TIF, OPTIONAL_FILES, RATE_TIF, REQUIRED_FILES, ROCKS_CSV, SOLUBLE_TIF,
     hazard_class_names, open_map_folder, output_file, read_layer,
 )
-from denude.io.outdir import check_new_files
+from denude.io.outdir import check_new_files, remove_dead_staging
 from denude.io.rasters import file_sha256
 from denude.io.rock_csv import read_rock_table
 from denude.io.vectors import check_output_path, read_points, read_polygons, vector_files
@@ -285,6 +285,7 @@ def summarize_outputs(
     out_path, csv_paths, sidecar = summary_paths(out_path, (units_path is not None, points_path is not None))
     check_new_files([out_path, *csv_paths.values(), sidecar], overwrite)
 
+    remove_dead_staging(out_path.parent)
     datasets, grid = open_map_folder(outdir)
     hasher = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     try:

@@ -190,7 +190,7 @@ def discard_staging(staged, error: BaseException) -> BaseException:
     for tmp, final in staged:
         text = text.replace(str(tmp), str(final)).replace(tmp.name, final.name)
     kept = [final.name for _, final in staged if final.exists()]
-    tail = f"; the previous {', '.join(kept)} {'is' if len(kept) == 1 else 'are'} kept unchanged" if kept else ""
+    tail = f"; the previous output ({', '.join(kept)}) is unchanged" if kept else ""
     return OutputError(f"{text}; the partial output was removed{tail}")
 
 
