@@ -405,4 +405,5 @@ def test_self_intersecting_zone_is_repaired_with_one_warning(env):
     assert len(warnings) == 1, result.stderr
     assert "bowtie.gpkg" in warnings[0] and "1 invalid zone polygon(s) repaired" in warnings[0]
     assert "basin 'b0'" in warnings[0] and "Self-intersection" in warnings[0]
+    assert "repaired" not in result.stdout                 # said once: the warning, not a second stdout line
     assert (env.tmp / "summary.gpkg").exists()
