@@ -196,13 +196,6 @@ class Case:
         return pytest.param(self, id=self.id, marks=marks)
 
 
-#: Fix of these cases lies in the validation rule book being written in execution/raster_job.py.
-#: Fix of these lies in the output-folder helper (io/outdir.py, being written): `denude batch` creates
-#: OUTDIR (and OUTDIR/inputs/) before it validates the inputs, and leaves the empty folder behind.
-#: `denude summarize` opens the map's rasters with rasterio directly, not through io/rasters.read_band.
-SUMMARIES = "summaries.py reads map rasters without io/rasters.read_band (execution/summaries.py is being restructured)"
-OUTDIR_HELPER = "batch creates OUTDIR before validating; the fix is the output-folder helper (io/outdir.py, being written)"
-VALIDATION = "needs the shared validation module (execution/raster_job.py is being restructured)"
 _ROCKS_HEAD = "code,name,mineral,density_g_cm3,purity\n"
 _ROCKS_OK = "0,cover,insoluble,2.6,1\n1,lime,calcite,2.6,0.95\n2,dolo,dolomite,2.85,0.95\n3,gyp,gypsum,2.3,0.95\n4,chalk,calcite,1.9,0.97\n5,marble,calcite,2.7,0.98\n"
 _AUX_NODATA = ('<PAMDataset><PAMRasterBand band="1"><NoDataValue>{value}</NoDataValue></PAMRasterBand></PAMDataset>\n')
