@@ -68,15 +68,17 @@ def test_full_disk_keeps_the_previous_output_and_removes_partial_files(map_input
     assert len(lines) == 1 and lines[0].startswith("denude: error:"), result.stderr
     assert "No space left on device" in lines[0] and "check free disk space" in lines[0]
     assert ".tif" in lines[0]                                     # the file being written is named
+    assert "the partial output was removed; the previous output (out) is unchanged" in lines[0], lines[0]
     assert _tree(out) == before                                   # the previous output is intact
     assert sorted(p.name for p in tmp_path.iterdir() if p.name.startswith(".")) == []   # no partial folder
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["out", *[p.name for p in map_inputs["paths"].values()]])
 
 
-@pytest.mark.xfail(strict=True, reason="saying 'partial files removed' is the output-folder helper's job "
-                                       "(io/outdir.py, being written): run_map removes the staging folder silently")
 def test_full_disk_message_says_the_partial_files_were_removed(map_inputs, tmp_path, monkeypatch):
     _fill_disk(monkeypatch)
     result = CliRunner().invoke(app, _args(map_inputs, tmp_path / "out"))
     assert result.exit_code == 1
-    assert "removed" in result.stderr
+    line = result.stderr.strip()
+    assert "\n" not in line and "the partial output was removed" in line, line
+    assert "previous" not in line                              # there was no previous output
+    assert ".partial-" not in line                         # names the output, not the hidden staging folder

@@ -47,9 +47,6 @@ def summarize(
     if not quiet:
         layers = ", ".join(f"{name} ({count})" for name, count in meta["outputs"]["layers"].items())
         typer.echo(f"wrote {out}: {layers}")
-        repaired = meta["zones"]["repaired_geometries"] + meta.get("planning_units", {}).get("repaired_geometries", 0)
-        if repaired:
-            typer.echo(f"repaired {repaired} invalid geometries (shapely.make_valid)")
         typer.echo(f"cell areas: {meta['method']['cell_area']}")
         evaluation = meta.get("sinkhole_evaluation")
         if evaluation:

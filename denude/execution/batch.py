@@ -48,7 +48,7 @@ from denude.execution.manifest import (
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 from denude.io.mosaic import mosaic_kind, write_mosaic_vrt
-from denude.io.outdir import check_new_folder, discard_folder, remove_path
+from denude.io.outdir import check_new_folder, discard_folder, remove_dead_staging, remove_path
 from denude.io.rasters import choose_layout
 from denude.io.vectors import read_points
 from denude.registry import INPUT_ROLES, OUTPUT_LAYERS, PCO2_FROM_AET, ZONE_LAYERS
@@ -166,10 +166,26 @@ def resolve_inputs(settings: MapSettings, out: Path) -> MapSettings:
 
 def _preflight(settings: MapSettings):
     """The rule book of `denude map` on the resolved inputs (each opened once; a decimated read
-    of each continuous raster; unreadable pixels are left to the tiles touching them, which
-    report them one by one). Returns (grid, report)."""
-    report = validate_job(settings, for_output=False, scan=False, values="decimated", tolerant=True)
+    of each continuous raster). Returns (grid, report). Only mosaics (VRTs) are read tolerantly:
+    unreadable pixels of one mosaic tile are left to the batch tiles touching them, which report
+    them one by one; a damaged single file fails here, before OUTDIR exists."""
+    mosaics = frozenset(role for role, path in raster_roles(settings).items() if mosaic_kind(path) != "file")
+    report = validate_job(settings, for_output=False, scan=False, values="decimated", tolerant=mosaics)
     return report.grid, report
+
+
+def validate_inputs(job: "BatchJob"):
+    """The rule book on the job's inputs and zone files, writing nothing under OUTDIR (mosaic
+    VRTs go to a temporary folder). Returns (grid, report); report is None for inputs with
+    mosaics (they are validated again once their VRTs are written under OUTDIR/inputs/)."""
+    if _has_mosaics(job.settings):
+        with tempfile.TemporaryDirectory() as tmp:
+            grid, _ = _preflight(resolve_inputs(job.settings, Path(tmp)))
+        report = None
+    else:
+        grid, report = _preflight(job.settings)
+    _check_zone_files(job.zones, grid)
+    return grid, report
 
 
 def _has_mosaics(settings: MapSettings) -> bool:
@@ -229,13 +245,18 @@ class BatchJob:
         self.engine_name, self.link = "none (nothing to do)", None
 
     # -- plan ------------------------------------------------------------------------------
-    def plan(self, manifest: Manifest | None) -> None:
-        """Resolve inputs, validate, make tiles, and pick the tiles to (re)run."""
+    def plan(self, manifest: Manifest | None, checked=None) -> None:
+        """Resolve inputs, validate, make tiles, and pick the tiles to (re)run. ``checked``: the
+        (grid, report) of ``validate_inputs``; its report is reused when it validated these very
+        inputs (no mosaics), so they are not validated twice."""
         self.resolved = resolve_inputs(self.settings, self.out)
-        self.grid, self.report = _preflight(self.resolved)
+        if checked is not None and checked[1] is not None and self.resolved is self.settings:
+            self.grid, self.report = checked
+        else:
+            self.grid, self.report = _preflight(self.resolved)
+            _check_zone_files(self.zones, self.grid)
         self.resolved = self.report.settings            # with the units validation resolved
         self.hashes = HashJob(hashed_paths(self.resolved, self.report))
-        _check_zone_files(self.zones, self.grid)
         self.tiles = make_tiles(self.grid, self.size)
         if manifest is None:
             manifest = Manifest.new(self.out, self.key, self.size, self.grid.as_dict(), self.layers)
@@ -415,10 +436,13 @@ def run_batch(
     _check_inputs_outside(settings, job.out, zones)
     if dry_run:
         return _dry_run(job)
+    checked = validate_inputs(job)       # before OUTDIR is created (or an old one replaced)
+    remove_dead_staging(job.out.parent)
     manifest = _prepare_out_dir(job.out, job.key, settings.overwrite)
     job.out.mkdir(exist_ok=True)
     with _Lock(job.out):
-        job.plan(manifest)
+        remove_dead_staging(job.out)     # e.g. a merged-layer folder of a killed run
+        job.plan(manifest, checked)
         job.run_tiles()
         summary = job.finish(started)
     warn_about_counts(summary.counts)
@@ -431,11 +455,6 @@ def _dry_run(job: BatchJob) -> BatchSummary:
     manifest = Manifest.load(out) if out.is_dir() else None
     if manifest is not None and manifest.key != job.key and not settings.overwrite:
         raise BatchError(f"output folder {out} holds a batch of a different job ({MANIFEST_NAME}); use --overwrite or a new --out")
-    if _has_mosaics(settings):
-        with tempfile.TemporaryDirectory() as tmp:
-            grid, _ = _preflight(resolve_inputs(settings, Path(tmp)))
-    else:
-        grid, _ = _preflight(settings)
-    _check_zone_files(job.zones, grid)
+    grid, _ = validate_inputs(job)
     tiles = make_tiles(grid, job.size)
     return BatchSummary(str(out), grid, job.size, len(tiles), 0, 0, {}, [], "dry run", None, {}, 0.0)

@@ -247,6 +247,7 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
     from denude.io.rasters import file_sha256
     from denude.io.rock_csv import read_rock_table
     from denude.io.samples import read_samples
+    from denude.io.outdir import remove_dead_staging
     from denude.io.vectors import read_polygons, write_layers
 
     if unsampled not in UNSAMPLED_CHOICES:
@@ -375,6 +376,7 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
                     "expected_raster": str(out / EXPECTED_TIF), "sidecar": str(out / SIDECAR)},
     }
 
+    remove_dead_staging(out)          # staged files of killed runs (their owner process is gone)
     created = not out.exists()
     out.mkdir(parents=True, exist_ok=True)
     tag = f".partial-{os.getpid()}"

@@ -24,8 +24,8 @@ from denude.errors import GridError, InputError
 from denude.execution.blocks import block_windows
 from denude.execution.validation import refuse_inputs_inside
 from denude.io.grid import Grid, cell_area_method
-from denude.io.map_folder import output_file
-from denude.io.outdir import check_new_folder, commit_dir, make_staging_dir, remove_path
+from denude.io.map_folder import output_file, read_layer
+from denude.io.outdir import check_new_folder, commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
 from denude.io.rasters import OutputSpec, RasterWriter, choose_layout
 from denude.reports.run_record import RUN_RECORD, write_run_record
 from denude.execution.summaries import zone_partials
@@ -127,6 +127,7 @@ def run_compare(base_dir, scenario_dir, out, zones=None, overwrite: bool = False
         check_same_grid(a_rate, a_co2, f"{base / RATE}", f"{base / CO2}")
         check_same_grid(a_rate, b_co2, f"{base / RATE}", f"{scenario / CO2}")
         grid = Grid.from_dataset(a_rate)
+        remove_dead_staging(out.parent)
         staging = make_staging_dir(out)
         writers = {}
         try:
@@ -136,8 +137,8 @@ def run_compare(base_dir, scenario_dir, out, zones=None, overwrite: bool = False
             names = list(COMPARE_LAYERS)
             for window in block_windows(grid.height, grid.width, BLOCK):
                 w = Window(window.col_off, window.row_off, window.width, window.height)
-                diff, ratio = difference_and_ratio(a_rate.read(1, window=w), b_rate.read(1, window=w))
-                co2_diff, _ = difference_and_ratio(a_co2.read(1, window=w), b_co2.read(1, window=w))
+                diff, ratio = difference_and_ratio(read_layer(a_rate, w), read_layer(b_rate, w))
+                co2_diff, _ = difference_and_ratio(read_layer(a_co2, w), read_layer(b_co2, w))
                 writers[names[0]].write(diff, w)
                 writers[names[1]].write(ratio, w)
                 writers[names[2]].write(co2_diff, w)
@@ -160,11 +161,10 @@ def run_compare(base_dir, scenario_dir, out, zones=None, overwrite: bool = False
                 record["zones"] = {"path": zones.path, "layer": zones.layer, "id_field": zones.id_field}
             write_run_record(staging / RUN_RECORD, record)
             commit_dir(staging, out, overwrite)
-        except BaseException:
+        except BaseException as exc:
             for writer in writers.values():
                 writer.abort()
-            remove_path(staging)
-            raise
+            raise_discarded([(staging, out)], exc)
     finally:
         for ds in datasets:
             ds.close()

@@ -21,7 +21,7 @@ from denude.execution.validation import check_window, validate_job, warn_about_c
 from denude.execution.window import WindowResult, run_window
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
-from denude.io.outdir import commit_dir, make_staging_dir, remove_path
+from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
 from denude.io.rasters import RasterWriter
 from denude.io.layer_meta import write_map_styles
 from denude.io.rock_csv import write_rock_table
@@ -67,6 +67,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     layers = [name for name in OUTPUT_LAYERS if name in settings.layers]
     hashes = HashJob(hashed_paths(settings, report))
     plan = plan_from_report(report)
+    remove_dead_staging(out.parent)     # leftovers of killed runs (their owner process is gone)
     staging = make_staging_dir(out)
     writers: dict = {}
     readers = _ThreadReaders(plan)
@@ -90,12 +91,11 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
         )
         write_run_record(staging / RUN_RECORD, record)
         commit_dir(staging, out, settings.overwrite)
-    except BaseException:
+    except BaseException as exc:
         readers.close()
         for writer in writers.values():
             writer.abort()
-        remove_path(staging)
-        raise
+        raise_discarded([(staging, out)], exc)
     warn_about_counts(total.as_dict())
     return MapRunSummary(str(out), grid, total, outputs, wall, len(windows), report.layout, record)
 

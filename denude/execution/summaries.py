@@ -48,9 +48,9 @@ from denude.io.coverage import coverage_pairs
 from denude.io.grid import Grid, cell_areas_km2, zone_areas_km2
 from denude.io.map_folder import (
     CO2_TIF, COVER_TIF, HAZARD_TIF, LITHOLOGY_TIF, OPTIONAL_FILES, RATE_TIF, REQUIRED_FILES, ROCKS_CSV, SOLUBLE_TIF,
-    hazard_class_names, open_map_folder, output_file,
+    hazard_class_names, open_map_folder, output_file, read_layer,
 )
-from denude.io.outdir import check_new_files
+from denude.io.outdir import check_new_files, remove_dead_staging
 from denude.io.rasters import file_sha256
 from denude.io.rock_csv import read_rock_table
 from denude.io.vectors import check_output_path, read_points, read_polygons, vector_files
@@ -285,6 +285,7 @@ def summarize_outputs(
     out_path, csv_paths, sidecar = summary_paths(out_path, (units_path is not None, points_path is not None))
     check_new_files([out_path, *csv_paths.values(), sidecar], overwrite)
 
+    remove_dead_staging(out_path.parent)
     datasets, grid = open_map_folder(outdir)
     hasher = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     try:
@@ -370,7 +371,7 @@ def _run_strips(datasets, grid, areas_row, sets, lookup, point_rc, point_values,
             return None
         window = Window(0, r0, grid.width, r1 - r0)
         wanted = names if picks else names[:3]
-        return {name: datasets[name].read(1, window=window).ravel() for name in wanted}
+        return {name: read_layer(datasets[name], window).ravel() for name in wanted}
 
     def accumulate(zs, pairs, row_area, data):
         zs.acc.add_runs(

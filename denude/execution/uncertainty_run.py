@@ -55,7 +55,7 @@ from denude.execution.window import WindowResult
 from denude.execution.window_inputs import read_window_inputs
 from denude.io.coverage import coverage_pairs
 from denude.io.grid import cell_areas_km2
-from denude.io.outdir import commit_dir, make_staging_dir, remove_path
+from denude.io.outdir import commit_dir, make_staging_dir, remove_dead_staging, remove_path
 from denude.reports.run_record import RUN_RECORD, run_record, write_run_record
 from denude.reports.summary_files import layer_provenance, sidecar_head, write_summary_files, zone_table
 from denude.io.jobfile import MapSettings
@@ -264,6 +264,7 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
                 partial = (sel, part, area)
         return window, bands, check, block.clipped_draws, partial
 
+    remove_dead_staging(out.parent)
     staging = make_staging_dir(out)
     writers: dict = {}
     total = BlockCounts()

@@ -31,7 +31,7 @@ from denude.io.mosaic import is_virtual_path
 from denude.io.outdir import check_new_folder
 from denude.io.rasters import (
     RasterInfo, WarpPlan, choose_layout, decimated_codes, describe_dataset, open_raster, overlap_fraction,
-    plan_warp, sample_value_range, unique_codes, value_range,
+    plan_warp, read_band, sample_value_range, unique_codes, value_range,
 )
 from denude.io.units import UnitChoice, choose_unit, settings_unit
 from denude.registry import INPUT_ROLES, PCO2_FROM_AET, VALUE_FIELDS
@@ -227,13 +227,13 @@ def inspect_job(settings: MapSettings, for_output: bool = True) -> JobReport:
 
 
 def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: str | None = None,
-                 tolerant: bool = False) -> JobReport:
+                 tolerant=False) -> JobReport:
     """The rule book. ``scan``: read every block for codes and refuse inputs without valid
     cells (`check`); else codes are scanned only for a float lithology (a run checks every
     window as it goes). ``values``: 'decimated' (a reduced whole read; default with ``scan``)
     or 'sample' (a lattice of small windows; default otherwise). ``tolerant``: unreadable
-    pixels are left to the windows that touch them (a batch reports them per tile).
-    Each input is opened once."""
+    pixels are left to the windows that touch them (a batch reports them per tile); True for
+    every input, or a set of the roles read so (a batch's mosaics). Each input is opened once."""
     values = values or ("decimated" if scan else "sample")
     rocks = load_rocks(settings)
     roles = raster_roles(settings)
@@ -253,10 +253,15 @@ def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: st
             ds = lithology if role == "lithology" else stack.enter_context(open_raster(path, role))
             if role != "lithology":
                 _choose_unit(report, role, ds, path)
-            report.inputs[role] = _check_raster(report, role, path, ds, values, scan, tolerant)
+            report.inputs[role] = _check_raster(report, role, path, ds, values, scan, _tolerant(tolerant, role))
         _check_units_together(report)
-        _check_codes(report, lithology, scan, tolerant, values)
+        _check_codes(report, lithology, scan, _tolerant(tolerant, "lithology"), values)
     return report
+
+
+def _tolerant(tolerant, role: str) -> bool:
+    """Whether ``role`` is read tolerantly under ``validate_job``'s ``tolerant`` (a bool or a set of roles)."""
+    return tolerant if isinstance(tolerant, bool) else role in tolerant
 
 
 def _choose_unit(report: JobReport, role: str, ds, path) -> UnitChoice:
@@ -341,6 +346,8 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
             f"{role} raster {path} covers {100 * item.overlap:.1f} % of the target grid; cells outside "
             "it will be nodata"), stacklevel=4)
     if categorical:
+        if role == "lithology" and not scan:
+            _refuse_all_nodata(role, path, ds, tolerant)      # `check` scans every code instead
         return item
     reader = value_range if values == "decimated" else sample_value_range
     try:
@@ -355,8 +362,8 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
         if not tolerant:
             raise
         return item          # unreadable parts: the windows (tiles) touching them report it
-    if n == 0 and scan:
-        raise InputError(f"{role} raster {path} has no valid cells (all nodata); check its nodata value")
+    if n == 0 and (scan or not _has_valid_cell(ds, path, role, tolerant)):
+        raise no_valid_cells_error(role, path)
     if n:
         unit = settings_unit(settings, role)[0]
         lo, hi = float(convert(lo, unit)), float(convert(hi, unit))
@@ -368,6 +375,45 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
             report.notes.append(f"runoff raster {path} has negative values (down to {lo:g} mm/yr); "
                                 f"they will be {fate}")
     return item
+
+
+def no_valid_cells_error(role: str, path) -> InputError:
+    """The one message for a raster input without a single valid cell."""
+    return InputError(
+        f"{role} raster {path} has no valid cells (every cell is nodata); check its nodata value "
+        "or give the right file")
+
+
+def _has_valid_cell(ds, path, role: str, tolerant: bool) -> bool:
+    """Whether band 1 of ``ds`` holds at least one valid (not nodata, finite) cell. Read block by
+    block and stopped at the first valid one: called only once a quick look found none, so a
+    raster with a small valid patch between the sampled windows is not refused. ``tolerant``:
+    an unreadable block counts as possibly valid (the windows or tiles over it report it)."""
+    for _, window in ds.block_windows(1):
+        try:
+            data = read_band(ds, path, role, window=window, masked=True)
+        except RasterReadError:
+            if tolerant:
+                return True
+            raise
+        if data.dtype.kind == "f":
+            data = np.ma.masked_invalid(data)
+        if data.count():
+            return True
+    return False
+
+
+def _refuse_all_nodata(role: str, path, ds, tolerant: bool) -> None:
+    """Refuse a categorical input without valid cells: a quick lattice look, then (only if it
+    found nothing) the block scan."""
+    try:
+        n = sample_value_range(path, role, dataset=ds)[2]
+    except RasterReadError:
+        if tolerant:
+            return
+        raise
+    if n == 0 and not _has_valid_cell(ds, path, role, tolerant):
+        raise no_valid_cells_error(role, path)
 
 
 def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool, values: str = "sample") -> None:
@@ -402,7 +448,7 @@ def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool, value
     report.codes_found = codes
     report.codes_missing = rocks.missing_codes(codes)
     if not codes:
-        raise InputError(f"lithology raster {settings.lithology} has no valid cells (all nodata); check its nodata value")
+        raise no_valid_cells_error("lithology", settings.lithology)
     if report.codes_missing and (scan or not tolerant):
         raise missing_codes_error(settings.lithology, report.codes_missing, rocks)
 

@@ -12,7 +12,7 @@ import rasterio
 from denude.core.hazard import DEFAULT_CLASS_NAMES
 from denude.errors import GridError, InputError
 from denude.io.grid import Grid
-from denude.io.rasters import check_georeferenced
+from denude.io.rasters import check_georeferenced, read_band
 from denude.registry import OPTIONAL_ZONE_LAYERS, OUTPUT_LAYERS, ZONE_LAYERS
 
 #: Raster files of the output folder read by a zone summary (DEVELOPERS.md contract).
@@ -65,6 +65,12 @@ def open_map_folder(outdir: Path):
             ds.close()
         raise
     return datasets, Grid.from_dataset(ref)
+
+
+def read_layer(dataset, window=None):
+    """Band 1 of an open map-folder layer (all of it, or ``window``). A read failure (a truncated
+    or damaged file) is the one-line error of ``io/rasters.read_band`` naming the file."""
+    return read_band(dataset, dataset.name, "map output", window=window)
 
 
 def hazard_class_names(dataset) -> list[str]:

@@ -176,6 +176,32 @@ def discard_folder(final) -> None:
     remove_path(old)
 
 
+def discard_staging(staged, error: BaseException) -> BaseException:
+    """Remove the staging entries of a failed write, ``staged``: (staging, final) pairs, and
+    return the error to raise. An ``OutputError`` (a full disk, an unwritable folder) becomes
+    one line naming the final paths rather than the hidden staging names and saying the partial
+    output was removed and any previous output kept; other errors are returned as they are."""
+    staged = [(Path(tmp), Path(final)) for tmp, final in staged]
+    for tmp, _ in staged:
+        remove_path(tmp)
+    if not isinstance(error, OutputError) or "partial output" in str(error):
+        return error
+    text = str(error)
+    for tmp, final in staged:
+        text = text.replace(str(tmp), str(final)).replace(tmp.name, final.name)
+    kept = [final.name for _, final in staged if final.exists()]
+    tail = f"; the previous output ({', '.join(kept)}) is unchanged" if kept else ""
+    return OutputError(f"{text}; the partial output was removed{tail}")
+
+
+def raise_discarded(staged, error: BaseException):
+    """Raise what ``discard_staging`` returns (an OutputError without the staging traceback)."""
+    replaced = discard_staging(staged, error)
+    if replaced is error:
+        raise error
+    raise replaced from None
+
+
 @contextmanager
 def staged_dir(final, overwrite: bool = True, durable: bool = False):
     """``with staged_dir(final) as staging:`` write into ``staging``; on a clean exit it is renamed
@@ -184,9 +210,8 @@ def staged_dir(final, overwrite: bool = True, durable: bool = False):
     try:
         yield staging
         commit_dir(staging, final, overwrite, durable)
-    except BaseException:
-        remove_path(staging)
-        raise
+    except BaseException as exc:
+        raise_discarded([(staging, final)], exc)
 
 
 @contextmanager
@@ -205,10 +230,8 @@ def staged_files(finals):
                 raise OutputError(
                     f"{final}: cannot be replaced ({exc.strerror or exc}); remove it or choose another output"
                 ) from None
-    except BaseException:
-        for tmp in temps:
-            remove_path(tmp)
-        raise
+    except BaseException as exc:
+        raise_discarded(zip(temps, finals), exc)
 
 
 def write_text_atomic(path, text: str) -> bool:
