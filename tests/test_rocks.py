@@ -89,3 +89,18 @@ def test_lookup_rows():
     rows = look.row_index(np.array([[0, 5], [7, 3]]))
     assert rows.tolist() == [[0, 5], [-1, 3]]
     assert RockTable.builtin().missing_codes([0, 1, 7, 9, 9]) == [7, 9]
+
+
+def test_rows_with_fields_beyond_the_header_are_one_line_errors(tmp_path):
+    # found by the parser fuzzing: an empty extra field once raised AttributeError
+    from denude.errors import RockTableError
+    from denude.io.rock_csv import read_rock_table
+
+    empty = tmp_path / "empty_extra.csv"
+    empty.write_text("code,name,mineral,density_g_cm3,purity\n,,,,,\n")
+    with pytest.raises(RockTableError, match="not an integer"):
+        read_rock_table(empty)
+    extra = tmp_path / "extra.csv"
+    extra.write_text("code,name,mineral,density_g_cm3,purity\n1,lime,calcite,2.6,0.9,7\n")
+    with pytest.raises(RockTableError, match=r"row 2 has more fields than the header \(6 > 5\)"):
+        read_rock_table(extra)

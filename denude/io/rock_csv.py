@@ -24,7 +24,14 @@ def read_rock_table(path) -> RockTable:
                     f"{path}: missing column(s) {', '.join(missing)}; the header must be "
                     f"{','.join(REQUIRED_COLUMNS)}"
                 )
-            rows = [{(k or "").strip(): (v or "").strip() for k, v in row.items()} for row in reader]
+            rows = []
+            for row in reader:
+                extra = row.pop(None, None)   # fields beyond the header (csv.DictReader's restkey)
+                if extra and any(str(v).strip() for v in extra):
+                    raise RockTableError(
+                        f"{path}: row {reader.line_num} has more fields than the header "
+                        f"({len(header) + len(extra)} > {len(header)}); remove the extra commas")
+                rows.append({(k or "").strip(): (v or "").strip() for k, v in row.items()})
     except FileNotFoundError:
         raise RockTableError(f"{path}: rock table not found; give the path of a CSV file") from None
     except (UnicodeDecodeError, csv.Error) as exc:
