@@ -5,7 +5,7 @@ file list or a VRT of tiles) plus the batch options below. Running the same comm
 resumes: tiles already done and verified are skipped. Exit 0 when every tile is done, 1 on a
 user error or when any tile failed (details in OUTDIR/run.json and OUTDIR/manifest.json).
 
-Job files may hold a ``[batch]`` table (keys in ``denude.io.jobfile.JOB_TABLE``); flags override it.
+Job files may hold a ``[batch]`` table (keys in ``denude.io.job_table.JOB_TABLE``); flags override it.
 """
 
 # annotations stay objects (no `from __future__ import annotations`): typer reads the aliases
