@@ -158,12 +158,27 @@ def test_init_round_trip(map_inputs, tmp_path):
     settings = build_settings(job_file=folder / "job.toml")          # loads cleanly as written
     assert settings.rocks == str(folder / "rocks.csv") and settings.out == str(folder / "out")
     # every commented key, once uncommented, is still a valid key of its section
-    uncommented = re.sub(r"^# ([a-z0-9_]+ = )", r"\1", text, flags=re.M)
+    # (the [scenario] and [uncertainty] tables are commented out whole: their headers too)
+    uncommented = re.sub(r"^# ([a-z0-9_]+ = |\[[a-z0-9_.]+\]$)", r"\1", text, flags=re.M)
     from denude.io.jobfile import read_batch_options, read_job_file
+    from denude.io.uncertainty_spec import check_rock_names, read_uncertainty
+    from denude.core.rocks import RockTable
+    from denude.core.uncertainty import UncertaintySpec
 
     (folder / "all.toml").write_text(uncommented)
-    assert read_batch_options(folder / "all.toml")["tile_size"] == 4096
-    assert set(read_job_file(folder / "all.toml")) >= {"grid_like", "hazard_names", "negative_runoff"}
+    batch = read_batch_options(folder / "all.toml")
+    assert batch["tile_size"] == 4096 and batch["units"] == str(folder / "parcels.gpkg")
+    fields = read_job_file(folder / "all.toml")
+    assert set(fields) >= {"grid_like", "hazard_names", "negative_runoff", "scenario"}
+    assert fields["scenario"].changes() == {"temperature_delta_c": 2.0}
+    spec = read_uncertainty(folder / "all.toml")
+    assert (spec.runoff_sigma_ln, spec.pco2_sigma_log10, spec.temperature_sigma_c) == (0.2, 0.15, 1.0)
+    assert spec.soil_co2_intercept_sigma_log10 == 0.1 and len(spec.saturation_ratio) == 3
+    assert ("limestone", "purity", 0.85, 1.0) in spec.rocks
+    check_rock_names(spec, RockTable.builtin(), folder / "all.toml")
+    # as written, neither table is active
+    assert read_job_file(folder / "job.toml").get("scenario") is None
+    assert read_uncertainty(folder / "job.toml").as_dict() == UncertaintySpec().as_dict()
     # with rasters under the template's names the job checks cleanly through the CLI
     for role in ("lithology", "runoff"):
         shutil.copy(map_inputs["paths"][role], folder / f"{role}.tif")

@@ -5,7 +5,7 @@ file list or a VRT of tiles) plus the batch options below. Running the same comm
 resumes: tiles already done and verified are skipped. Exit 0 when every tile is done, 1 on a
 user error or when any tile failed (details in OUTDIR/run.json and OUTDIR/manifest.json).
 
-Job files may hold a ``[batch]`` table (keys in ``denude.io.jobfile.JOB_TABLE``); flags override it.
+Job files may hold a ``[batch]`` table (keys in ``denude.io.job_table.JOB_TABLE``); flags override it.
 """
 
 # annotations stay objects (no `from __future__ import annotations`): typer reads the aliases
@@ -92,48 +92,70 @@ def batch_command(
     zones: Zones = None,
     zones_layer: ZonesLayer = None,
     zones_id_field: ZonesIdField = None,
+    units: o.Units = None,
+    units_layer: o.UnitsLayer = None,
+    units_id_field: o.UnitsIdField = None,
+    points: o.Points = None,
+    points_layer: o.PointsLayer = None,
     as_json: o.AsJson = False,
 ):
     """Map denudation rates tile by tile (resumable) on local worker processes or a Dask cluster."""
     values = dict(locals(), workers=None)          # --workers of a batch counts processes, not map threads
     settings = settings_from_options(job, values, out)
     table = read_batch_options(job) if job is not None else {}
-    zones_path = _pick(zones, table, "zones")
-    zone_spec = None
-    if zones_path:
-        zone_spec = ZoneSpec(str(Path(zones_path).resolve()), _pick(zones_layer, table, "zones_layer"),
-                             _pick(zones_id_field, table, "zones_id_field"))
     log = (lambda line: None) if quiet or as_json else (lambda line: typer.echo(line, err=True))
     with progress_callback("tiles", quiet or dry_run, rate_unit="tiles") as progress:
         summary = run_batch(
             settings, progress=progress, tile_size=_pick(tile_size, table, "tile_size", DEFAULT_TILE_SIZE),
             workers=_pick(workers, table, "workers"), scheduler=_pick(scheduler, table, "scheduler"),
-            retries=_pick(retries, table, "retries", 0), retry_failed=retry_failed, zones=zone_spec,
+            retries=_pick(retries, table, "retries", 0), retry_failed=retry_failed, zones=_zone_spec(values, table),
             merge=bool(_pick(merge, table, "merge", False)), log=log, dry_run=dry_run)
     failed = _failure_message(summary)
     if as_json:
         record = batch_record(summary, dry_run=dry_run)
         return {**record, "error": failed} if failed else record
-    if dry_run:
-        if not quiet:
-            rows = -(-summary.grid.height // summary.tile_size)
-            cols = -(-summary.grid.width // summary.tile_size)
-            typer.echo(f"grid: {summary.grid.describe()}")
-            typer.echo(f"tiles: {summary.tiles_total} ({rows} x {cols}) of {summary.tile_size} x {summary.tile_size} cells")
-            typer.echo("dry run: all checks passed, nothing written")
-        return None
     if not quiet:
-        typer.echo(f"{summary.out_dir}: {summary.tiles_total} tiles, {summary.tiles_run} computed, "
-                   f"{summary.tiles_skipped} already done, {len(summary.tiles_failed)} failed ({summary.engine})")
-        for tile_id, message in summary.tiles_failed.items():
-            typer.echo(f"  failed {tile_id}: {message}")
-        for name in summary.outputs:
-            typer.echo(f"  wrote {name}")
-        typer.echo(CAUTION)
-    if failed:
+        _print_summary(summary, dry_run)
+    if failed and not dry_run:
         typer.echo(f"denude: error: {failed}", err=True)
         raise typer.Exit(code=1)
     return None
+
+
+#: [batch] keys / flags of the zone summary -> ZoneSpec field (the vector files resolved to absolute paths).
+_ZONE_FIELDS = {"zones": "path", "zones_layer": "layer", "zones_id_field": "id_field", "units": "units",
+                "units_layer": "units_layer", "units_id_field": "units_id_field", "points": "points",
+                "points_layer": "points_layer"}
+_ZONE_PATHS = ("zones", "units", "points")
+
+
+def _zone_spec(values: dict, table: dict) -> Optional[ZoneSpec]:
+    """The zone summary of a batch from the flags over the [batch] keys (None without zones)."""
+    picked = {key: _pick(values.get(key), table, key) for key in _ZONE_FIELDS}
+    if not picked["zones"]:
+        return None
+    for key in _ZONE_PATHS:
+        if picked[key]:
+            picked[key] = str(Path(picked[key]).resolve())
+    return ZoneSpec(**{_ZONE_FIELDS[key]: value for key, value in picked.items()})
+
+
+def _print_summary(summary, dry_run: bool) -> None:
+    """The terminal lines of a finished (or dry) batch run."""
+    if dry_run:
+        rows = -(-summary.grid.height // summary.tile_size)
+        cols = -(-summary.grid.width // summary.tile_size)
+        typer.echo(f"grid: {summary.grid.describe()}")
+        typer.echo(f"tiles: {summary.tiles_total} ({rows} x {cols}) of {summary.tile_size} x {summary.tile_size} cells")
+        typer.echo("dry run: all checks passed, nothing written")
+        return
+    typer.echo(f"{summary.out_dir}: {summary.tiles_total} tiles, {summary.tiles_run} computed, "
+               f"{summary.tiles_skipped} already done, {len(summary.tiles_failed)} failed ({summary.engine})")
+    for tile_id, message in summary.tiles_failed.items():
+        typer.echo(f"  failed {tile_id}: {message}")
+    for name in summary.outputs:
+        typer.echo(f"  wrote {name}")
+    typer.echo(CAUTION)
 
 
 def _failure_message(summary) -> Optional[str]:

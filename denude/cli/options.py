@@ -149,6 +149,15 @@ Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar or s
 AsJson = Annotated[bool, typer.Option(
     "--json", help="Print one JSON object on stdout (what was done, outputs, counts, warnings) and nothing else.")]
 
+# ---------------------------------------------------------------- zone summaries (summarize, batch)
+Units = Annotated[Optional[Path], typer.Option(
+    help="Planning-unit polygons (e.g. parcels): written as layer planning_units.", exists=True, dir_okay=False)]
+UnitsLayer = Annotated[Optional[str], typer.Option(help="Layer of the planning-unit file.")]
+UnitsIdField = Annotated[Optional[str], typer.Option(help="Planning-unit id field.")]
+Points = Annotated[Optional[Path], typer.Option(
+    help="Sinkhole points: sampled and counted per zone (layer sinkholes).", exists=True, dir_okay=False)]
+PointsLayer = Annotated[Optional[str], typer.Option(help="Layer of the sinkhole file.")]
+
 #: The map-setting options of map, check and batch (their parameter names = MapSettings fields).
 MAP_SETTING_NAMES = (
     "lithology", "rocks", "runoff", "precipitation", "aet", "pco2", "pco2_units", "elevation", "air_pressure",

@@ -1,5 +1,6 @@
-"""Monte Carlo uncertainty of the rates: random streams, per-draw perturbations, the per-cell
-draw loop, per-cell quantiles, per-zone sums and first-order variance shares. No I/O.
+"""Monte Carlo uncertainty of the rates: per-draw perturbations, the per-cell draw loop,
+per-zone sums and first-order variance shares (the random streams are in
+``core/random_streams.py``, the per-cell quantiles in ``core/draw_quantiles.py``). No I/O.
 
 Random streams are counter based: every number is a hash (splitmix64 finaliser, Steele,
 Lea & Flood 2014) of the integers (seed, draw, stream, global row, global column), turned
@@ -30,68 +31,13 @@ import numpy as np
 
 from denude.core import fast_kernel as _fk  # noqa: F401  (sets numba's threading layer first)
 from denude.core.constants import CO2_PER_MOL, MINERALS, MOLAR_MASS_CO2_G_PER_MOL, MOLAR_MASS_G_PER_MOL
-
-#: Quantiles written per cell and per zone [probability].
-QUANTILES = (0.05, 0.50, 0.95)
-QUANTILE_LABELS = ("p05", "p50", "p95")
-
-# Stream numbers (each uses lanes 2*s and 2*s + 1). Regional streams have row = col = 0 and
-# numbers below CELL_STREAM; rock streams are keyed by rock code, not by table order.
-STREAM_RUNOFF, STREAM_PCO2, STREAM_TEMPERATURE, STREAM_SOIL_A, STREAM_SOIL_B = 1, 2, 3, 4, 5
-STREAM_SATURATION = 16          # + mineral index
-STREAM_ROCK = 1 << 24           # + 2 * code (purity) or + 2 * code + 1 (density)
-CELL_STREAM = 1 << 40           # + 1 runoff, + 2 PCO2, + 3 temperature
-
-_M1 = np.uint64(0xBF58476D1CE4E5B9)
-_M2 = np.uint64(0x94D049BB133111EB)
-_GOLDEN = np.uint64(0x9E3779B97F4A7C15)
-_S30, _S27, _S31, _S11 = np.uint64(30), np.uint64(27), np.uint64(31), np.uint64(11)
-_TWO_POW_M53 = 1.0 / 9007199254740992.0
-
-
-@numba.njit(cache=True, nogil=True)
-def _mix(z):
-    z = (z ^ (z >> _S30)) * _M1
-    z = (z ^ (z >> _S27)) * _M2
-    return z ^ (z >> _S31)
-
-
-@numba.njit(cache=True, nogil=True)
-def key_uniform(seed, draw, lane, row, col):
-    """Uniform in (0, 1) from the integers (seed, draw, lane, row, col) (all >= 0)."""
-    h = _mix(np.uint64(seed) + _GOLDEN)
-    h = _mix(h ^ (np.uint64(draw) + _GOLDEN))
-    h = _mix(h ^ (np.uint64(lane) + _GOLDEN))
-    h = _mix(h ^ (np.uint64(row) + _GOLDEN))
-    h = _mix(h ^ (np.uint64(col) + _GOLDEN))
-    return (np.float64(h >> _S11) + 0.5) * _TWO_POW_M53
-
-
-@numba.njit(cache=True, nogil=True)
-def key_normal(seed, draw, stream, row, col):
-    """Standard normal from (seed, draw, stream, row, col): Box-Muller of lanes 2s and 2s+1."""
-    u1 = key_uniform(seed, draw, 2 * stream, row, col)
-    u2 = key_uniform(seed, draw, 2 * stream + 1, row, col)
-    return math.sqrt(-2.0 * math.log(u1)) * math.cos(2.0 * math.pi * u2)
-
-
-@numba.njit(cache=True)
-def _regional(seed, n_draws, stream, normal):
-    out = np.empty(n_draws)
-    for d in range(n_draws):
-        out[d] = key_normal(seed, d, stream, 0, 0) if normal else key_uniform(seed, d, 2 * stream, 0, 0)
-    return out
-
-
-def regional_normals(seed: int, n_draws: int, stream: int) -> np.ndarray:
-    """Standard normals of draws 0..n-1 of one regional stream (float64)."""
-    return _regional(int(seed), int(n_draws), int(stream), True)
-
-
-def regional_uniforms(seed: int, n_draws: int, stream: int) -> np.ndarray:
-    """Uniforms in (0, 1) of draws 0..n-1 of one regional stream (float64)."""
-    return _regional(int(seed), int(n_draws), int(stream), False)
-
+# the random streams and the quantiles have modules of their own; re-exported for the old import path
+from denude.core.draw_quantiles import (QUANTILE_LABELS, QUANTILES, block_quantiles,  # noqa: F401
+                                        cell_quantiles, summary_quantiles)
+from denude.core.draw_quantiles import twin as _twin
+from denude.core.random_streams import (CELL_STREAM, STREAM_PCO2, STREAM_ROCK, STREAM_RUNOFF,  # noqa: F401
+                                        STREAM_SATURATION, STREAM_SOIL_A, STREAM_SOIL_B, STREAM_TEMPERATURE,
+                                        key_normal, key_uniform, regional_normals, regional_uniforms)
 
 # ------------------------------------------------------------------------------ the spec
 @dataclass(frozen=True)
@@ -226,7 +172,11 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
                noise_q, noise_p, noise_t, seed, row0, col0, width,
                tables, t0, dt, lp0, dlp, t_min, t_max, p_max, rate_out, co2_out, status, clipped):
     """Fill rate_out and co2_out (cells x draws, float32, NaN where the base cell is not
-    computed), status per cell and the number of clipped draws per cell."""
+    computed), status per cell and the number of clipped draws per cell.
+
+    Long on purpose: this is the compiled numba loop over cells (parallel build) and draws.
+    Status checks, perturbation and the bilinear table look-up stay inline in one body so
+    numba keeps each cell's values in registers; helper calls per draw would cost speed."""
     n = codes.shape[0]
     n_draws = q_factor.shape[0]
     n_t = tables.shape[1]
@@ -305,20 +255,6 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
         clipped[k] = n_clip
 
 
-def _twin(func, suffix: str):
-    """A copy of ``func`` under another name. numba keys its on-disk cache by the function's
-    name and signature, not by the parallel flag, so a serial and a parallel build of one
-    function would be taken for each other (and a "serial" call from a worker thread would
-    enter the threading layer); a twin gets cache entries of its own."""
-    import types
-
-    name = func.__name__ + suffix
-    code = func.__code__.replace(co_name=name, co_qualname=name)
-    twin = types.FunctionType(code, func.__globals__, name, func.__defaults__, func.__closure__)
-    twin.__qualname__ = name
-    return twin
-
-
 draw_loop_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_draw_loop)
 draw_loop_serial = numba.njit(parallel=False, cache=True, nogil=True)(_twin(_draw_loop, "_serial"))
 
@@ -380,102 +316,6 @@ def draw_block(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, solub
     return DrawBlock(rate, co2, np.ascontiguousarray(rock_row, np.int64), status, int(clipped.sum()))
 
 
-# ------------------------------------------------------------------------- quantiles
-#: Cells per chunk of the quantile loop (one scratch buffer per chunk).
-_QUANTILE_CHUNK = 1024
-
-
-@numba.njit(cache=True, nogil=True)
-def _sorted_quantiles(values, k, buf, perm, probs, out):
-    """Quantiles of values[k, :] into out[:, k]; buf and perm are scratch, perm carrying the
-    previous cell's order: insertion sort from it moves few elements when neighbouring cells
-    order their draws alike (regional draws), and the sorted values do not depend on it."""
-    m = values.shape[1]
-    for i in range(m):
-        buf[i] = values[k, perm[i]]
-    for i in range(1, m):
-        v = buf[i]
-        pv = perm[i]
-        j = i - 1
-        while j >= 0 and buf[j] > v:
-            buf[j + 1] = buf[j]
-            perm[j + 1] = perm[j]
-            j -= 1
-        buf[j + 1] = v
-        perm[j + 1] = pv
-    for j in range(probs.shape[0]):
-        h = (m - 1) * probs[j]
-        lo = int(math.floor(h))
-        hi = min(lo + 1, m - 1)
-        a = np.float64(buf[lo])
-        out[j, k] = a + (h - lo) * (np.float64(buf[hi]) - a)
-
-
-def _quantiles(values, probs, out, follow, rock_row, row_ratio, out_follow):
-    """Per-cell quantiles of ``values`` into ``out``; with ``follow`` also those of a second
-    (cells, draws) array ``out_follow``: where its ratio to ``values`` is one constant per
-    rock (``row_ratio`` finite) they are the first quantiles times it, else sorted anew."""
-    n = values.shape[0]
-    m = values.shape[1]
-    n_chunks = (n + _QUANTILE_CHUNK - 1) // _QUANTILE_CHUNK
-    for c in numba.prange(n_chunks):
-        buf = np.empty(m, np.float32)
-        perm = np.arange(m)
-        perm2 = np.arange(m)
-        for k in range(c * _QUANTILE_CHUNK, min(n, (c + 1) * _QUANTILE_CHUNK)):
-            if m == 0 or math.isnan(values[k, 0]):
-                for j in range(probs.shape[0]):
-                    out[j, k] = np.nan
-                    if follow.shape[0]:
-                        out_follow[j, k] = np.nan
-                continue
-            _sorted_quantiles(values, k, buf, perm, probs, out)
-            if follow.shape[0]:
-                r = rock_row[k]
-                ratio = row_ratio[r] if r >= 0 else np.nan
-                if math.isnan(ratio):
-                    _sorted_quantiles(follow, k, buf, perm2, probs, out_follow)
-                else:
-                    for j in range(probs.shape[0]):
-                        out_follow[j, k] = out[j, k] * ratio
-
-
-_quantiles_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_quantiles)
-_quantiles_serial = numba.njit(parallel=False, cache=True, nogil=True)(_twin(_quantiles, "_serial"))  # see _twin
-
-
-def cell_quantiles(values, probs=QUANTILES, parallel: bool = True) -> np.ndarray:
-    """Per-cell quantiles of (cells, draws) values: (len(probs), cells) float32, by linear
-    interpolation between order statistics (numpy's default ``linear`` method, Hyndman & Fan
-    type 7); NaN where a cell is nodata (its first draw NaN)."""
-    values = np.ascontiguousarray(values)
-    out = np.empty((len(probs), values.shape[0]), np.float32)
-    none = np.zeros((0, 0), np.float32)
-    (_quantiles_parallel if parallel else _quantiles_serial)(
-        values, np.asarray(probs, np.float64), out, none, np.zeros(0, np.int64), np.zeros(0), none)
-    return out
-
-
-def block_quantiles(block: "DrawBlock", draws: "DrawTable", probs=QUANTILES, parallel: bool = True):
-    """(rate quantiles, CO2 quantiles), each (len(probs), cells) float32, of one DrawBlock. For
-    rocks whose CO2 / rate ratio is the same in every draw (no density or purity range) the CO2
-    quantiles are the rate quantiles times that ratio (quantiles commute with a positive
-    factor); for the others the CO2 draws are sorted anew."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = draws.co2_factor / draws.rate_factor          # (draws, rows)
-    row_ratio = np.full(ratio.shape[1], np.nan)
-    for r in range(ratio.shape[1]):
-        col = ratio[:, r]
-        if np.all(np.isfinite(col)) and np.all(col == col[0]) and col[0] >= 0:
-            row_ratio[r] = col[0]
-    n = block.rate.shape[0]
-    out_rate = np.empty((len(probs), n), np.float32)
-    out_co2 = np.empty((len(probs), n), np.float32)
-    (_quantiles_parallel if parallel else _quantiles_serial)(
-        block.rate, np.asarray(probs, np.float64), out_rate, block.co2, block.rock_row, row_ratio, out_co2)
-    return out_rate, out_co2
-
-
 # ------------------------------------------------------------------------------ zones
 @numba.njit(cache=True, nogil=True)
 def zone_draw_sums(run_zone, run_start, cell, coverage, row_area_km2, width, rate, co2, rock_row,
@@ -529,8 +369,3 @@ def variance_shares(inputs, y):
     resid = yc - xc @ coef
     r2 = 1.0 - float(resid @ resid) / float(yc @ yc)
     return src * r, r2
-
-
-def summary_quantiles(values, probs=QUANTILES, axis=-1) -> np.ndarray:
-    """Quantiles over draws (numpy ``linear`` method), NaN-free input assumed."""
-    return np.quantile(np.asarray(values, np.float64), probs, axis=axis)

@@ -10,15 +10,9 @@ accumulator keeps, per zone, float64 sums that add exactly across blocks and til
 * sum(w*D), sum(w*D**2), min(D), max(D) of the rate D [mm/kyr];
 * sum(w*D) [m3/yr, since 1 mm/kyr over 1 km2 is 1 m3/yr], sum(w*D*density) [t/yr],
   sum(w*CO2) [t/yr];
-* a weighted histogram of D on fixed bins (``RATE_BIN_EDGES_MM_PER_KYR``), for percentiles;
+* a weighted histogram of D on fixed bins (``RATE_BIN_EDGES_MM_PER_KYR``), for percentiles
+  (bins, resolution and percentiles: ``denude.core.rate_histogram``);
 * sinkhole points: count, count with a valid rate, sum of their rates.
-
-Percentile resolution: bin 0 holds exact zeros (insoluble rock), bin 1 holds (0, 0.01)
-mm/kyr, then 4000 log-spaced bins from 0.01 to 10000 mm/kyr (each 0.35 % wide), and a last
-bin for rates >= 10000 mm/kyr. Inside a bin the weight is spread uniformly between the bin
-edges clipped to the zone's exact min and max, so a percentile is within one bin width
-(0.35 % of the value, or 0.01 mm/kyr below 0.01 mm/kyr) of the exact weighted percentile,
-and exact for a zone of constant rate.
 
 The per-cell pass is one compiled loop (numba, releases the GIL) over (zone, cell) pairs;
 memory: n_zones x 4003 float64 for the histogram while that is at most 2**25 entries
@@ -33,82 +27,20 @@ import math
 import numba
 import numpy as np
 
-from denude.core.hazard import HIGHEST_CLASS_MIN_SHARE, dominant_and_highest
+from denude.core.hazard import HIGHEST_CLASS_MIN_SHARE
+# the histogram bins and percentiles live in core/rate_histogram.py; re-exported for the old import path
+from denude.core.rate_histogram import (_F32_BIN_TABLE, _INV_LOG_STEP, _LOG_LOW, _LOWER, _UPPER,  # noqa: F401
+                                        N_RATE_BINS, PERCENTILE_RELATIVE_RESOLUTION, RATE_BIN_EDGES_MM_PER_KYR,
+                                        RATE_BIN_HIGH_MM_PER_KYR, RATE_BIN_LOW_MM_PER_KYR, RATE_LOG_BINS,
+                                        PERCENTILES, _rate_bin, _rate_bin_float32, histogram_percentiles,
+                                        rate_bin_index)
+# the summary columns of finalize live in core/zone_columns.py
+from denude.core.zone_columns import column_label, zone_columns  # noqa: F401
+from denude.core.rate_histogram import group_bounds as _group_bounds  # noqa: F401
 
-#: Lower edge of the log-spaced bins [mm/kyr]; below it (but > 0) is one bin.
-RATE_BIN_LOW_MM_PER_KYR = 0.01
-#: Upper edge of the log-spaced bins [mm/kyr]; at or above it is one overflow bin.
-RATE_BIN_HIGH_MM_PER_KYR = 10000.0
-#: Number of log-spaced bins between the low and high edges.
-RATE_LOG_BINS = 4000
-#: Edges of the log-spaced bins [mm/kyr] (RATE_LOG_BINS + 1 values).
-RATE_BIN_EDGES_MM_PER_KYR = np.logspace(
-    np.log10(RATE_BIN_LOW_MM_PER_KYR), np.log10(RATE_BIN_HIGH_MM_PER_KYR), RATE_LOG_BINS + 1
-)
-#: Total histogram bins: zero, (0, low), the log bins, overflow.
-N_RATE_BINS = RATE_LOG_BINS + 3
-#: Relative width of one log bin (the percentile resolution above 0.01 mm/kyr).
-PERCENTILE_RELATIVE_RESOLUTION = float(RATE_BIN_EDGES_MM_PER_KYR[1] / RATE_BIN_EDGES_MM_PER_KYR[0] - 1)
-
-#: Percentiles reported by ``finalize`` [%].
-PERCENTILES = (10, 50, 90)
 
 #: Above this many zone x bin entries the histogram is kept sparse (sorted keys).
 DENSE_HISTOGRAM_LIMIT = 1 << 25
-
-_LOWER = np.concatenate(([0.0, 0.0], RATE_BIN_EDGES_MM_PER_KYR))            # per bin
-_UPPER = np.concatenate(([0.0], RATE_BIN_EDGES_MM_PER_KYR, [np.inf]))
-
-
-
-_LOG_LOW = float(np.log10(RATE_BIN_LOW_MM_PER_KYR))
-_INV_LOG_STEP = float(RATE_LOG_BINS / (np.log10(RATE_BIN_HIGH_MM_PER_KYR) - np.log10(RATE_BIN_LOW_MM_PER_KYR)))
-
-#: float32 rates are binned through a table indexed by their top bits (sign, exponent and the
-#: first 9 mantissa bits: buckets 0.2 % wide, narrower than a bin), then moved up to the
-#: exact bin by comparing with the bin edges; the result equals ``rate_bin_index``.
-_F32_SHIFT = 14
-
-
-def _float32_bin_table() -> np.ndarray:
-    """Bin (int16) of the lowest float32 of each top-bits bucket (positive floats only)."""
-    keys = np.arange(1 << (31 - _F32_SHIFT), dtype=np.uint32)
-    with np.errstate(invalid="ignore"):          # the NaN bit patterns of the last buckets
-        lowest = (keys << np.uint32(_F32_SHIFT)).view(np.float32).astype(np.float64)
-    lowest[~np.isfinite(lowest)] = np.inf
-    return rate_bin_index(lowest).astype(np.int16)
-
-
-@numba.njit(cache=True, nogil=True, error_model="numpy")
-def _rate_bin(r, edges, log_low, inv_step):
-    """Histogram bin of one rate [mm/kyr] >= 0 (same rule as ``rate_bin_index``)."""
-    if r <= 0.0:
-        return 0
-    n_log = edges.size - 1
-    if r < edges[0]:
-        return 1
-    if r >= edges[n_log]:
-        return n_log + 2
-    k = int((math.log10(r) - log_low) * inv_step)
-    if k < 0:
-        k = 0
-    if k > n_log - 1:
-        k = n_log - 1
-    while k > 0 and r < edges[k]:
-        k -= 1
-    while k < n_log - 1 and r >= edges[k + 1]:
-        k += 1
-    return k + 2
-
-
-@numba.njit(cache=True, nogil=True, error_model="numpy")
-def _rate_bin_float32(r, bits, bin_table, upper):
-    """Histogram bin of one float32 rate r > 0 [mm/kyr] from its bits (uint32) through the
-    top-bits table, then up to the exact bin (same rule as ``rate_bin_index``)."""
-    b = bin_table[bits >> 14]
-    while b < upper.size - 1 and r >= upper[b]:
-        b += 1
-    return b
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
@@ -123,7 +55,11 @@ def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits
     the float32 rate viewed as uint32 (empty for float64 rates: bins then come from log10);
     ``code_table[code - codes[0]]`` is a code's rock row when the codes span a short range
     (empty otherwise: binary search). ``cover_class`` (empty: none) is the covered-karst class
-    per cell: class 2 adds w x soluble fraction to ``covered_area``, class 1 to ``exposed_area``."""
+    per cell: class 2 adds w x soluble fraction to ``covered_area``, class 1 to ``exposed_area``.
+
+    Long on purpose: the compiled numba loop over every (zone, cell) pair. All sums of a run
+    stay in local variables of one body so numba keeps them in registers and each cell is read
+    once; splitting it would add passes over the cells or calls per cell."""
     dense = bins.size == 0
     n_codes = codes.size
     n_bins = upper.size
@@ -253,17 +189,6 @@ def _accumulate(run_zone, run_start, cell, cov, row_area, width, rate, rate_bits
         nodata_cells[z] += n_nodata
 
 
-def rate_bin_index(rate_mm_per_kyr) -> np.ndarray:
-    """Histogram bin (int64) of each finite, non-negative rate [mm/kyr]."""
-    rate = np.asarray(rate_mm_per_kyr, dtype=np.float64)
-    idx = np.searchsorted(RATE_BIN_EDGES_MM_PER_KYR, rate, side="right") + 1
-    return np.where(rate <= 0.0, 0, idx).astype(np.int64)
-
-
-_F32_BIN_TABLE = _float32_bin_table()
-assert _F32_SHIFT == 14  # the kernel shifts by the literal 14
-
-#: Rock codes spanning at most this many values are looked up in a table (else binary search).
 _CODE_TABLE_SPAN = 1 << 16
 
 
@@ -276,13 +201,6 @@ def _code_table(codes: np.ndarray) -> np.ndarray:
     table[codes - codes[0]] = np.arange(codes.size, dtype=np.int32)
     return table
 
-
-def _group_bounds(sorted_zone: np.ndarray):
-    """Start of each run of equal zone indices in a sorted array, and the run's zone."""
-    if sorted_zone.size == 0:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    starts = np.flatnonzero(np.r_[True, sorted_zone[1:] != sorted_zone[:-1]])
-    return starts, sorted_zone[starts]
 
 
 class ZonalAccumulator:
@@ -496,35 +414,8 @@ class ZonalAccumulator:
     def percentiles(self, percents=PERCENTILES) -> np.ndarray:
         """Area-weighted percentiles of the rate [mm/kyr], shape (n_zones, len(percents));
         NaN for zones without valid cells. Resolution: see the module docstring."""
-        percents = np.asarray(percents, dtype=np.float64)
-        out = np.full((self.n_zones, percents.size), np.nan)
         keys, weights = self._hist_sparse()
-        if keys.size == 0:
-            return out
-        zone = keys // N_RATE_BINS
-        bins = keys % N_RATE_BINS
-        starts, zones = _group_bounds(zone)
-        cum = np.cumsum(weights)
-        before_group = np.r_[0.0, cum][starts]                  # cum at the start of each zone
-        total = np.add.reduceat(weights, starts)
-        group_of = np.repeat(np.arange(zones.size), np.diff(np.r_[starts, keys.size]))
-        cum_in = cum - before_group[group_of]                   # cumulative weight within zone
-        frac = cum_in / total[group_of]
-        frac[np.r_[starts[1:] - 1, keys.size - 1]] = 1.0        # last entry of each zone
-        position = group_of + frac                              # non-decreasing overall
-        zmin, zmax = self.min_rate[zones], self.max_rate[zones]
-        for j, p in enumerate(percents):
-            q = min(max(p / 100.0, 0.0), 1.0)
-            target = np.arange(zones.size) + q
-            idx = np.searchsorted(position, target - 1e-12 * (q > 0), side="left")
-            idx = np.minimum(np.maximum(idx, starts), np.r_[starts[1:], keys.size] - 1)
-            w_bin = weights[idx]
-            below = cum_in[idx] - w_bin
-            t = np.clip((q * total - below) / w_bin, 0.0, 1.0)
-            lo = np.clip(_LOWER[bins[idx]], zmin, zmax)
-            hi = np.clip(_UPPER[bins[idx]], zmin, zmax)
-            out[zones, j] = lo + t * (hi - lo)
-        return out
+        return histogram_percentiles(keys, weights, self.min_rate, self.max_rate, self.n_zones, percents)
 
     def finalize(self, class_names=None, rock_names=None, with_points=None,
                  highest_min_share=HIGHEST_CLASS_MIN_SHARE) -> dict[str, np.ndarray]:
@@ -537,79 +428,4 @@ class ZonalAccumulator:
         ``exposed_soluble_area_km2`` (soluble area under cover / exposed, km2) and
         ``covered_soluble_share`` (covered / (covered + exposed); soluble cells of unknown cover
         are in neither)."""
-        with np.errstate(invalid="ignore", divide="ignore"):
-            has = self.valid_area_km2 > 0
-            mean = np.where(has, self.sum_w_rate / np.where(has, self.valid_area_km2, 1), np.nan)
-            var = np.where(has, self.sum_w_rate2 / np.where(has, self.valid_area_km2, 1) - mean**2, np.nan)
-            std = np.sqrt(np.maximum(var, 0.0))
-            area = self.area_km2
-            some = area > 0
-            pct = self.percentiles()
-            cols: dict[str, np.ndarray] = {
-                "area_km2": area,
-                "valid_area_km2": self.valid_area_km2,
-                "soluble_area_km2": self.soluble_area_km2,
-                "soluble_area_fraction": np.where(some, self.soluble_area_km2 / np.where(some, area, 1), np.nan),
-                "valid_cells": self.valid_cells,
-                "nodata_cells": self.nodata_cells,
-                "denudation_mean_mm_per_kyr": mean,
-                "denudation_std_mm_per_kyr": np.where(has, std, np.nan),
-                "denudation_min_mm_per_kyr": np.where(has, self.min_rate, np.nan),
-                "denudation_max_mm_per_kyr": np.where(has, self.max_rate, np.nan),
-            }
-            for j, p in enumerate(PERCENTILES):
-                cols[f"denudation_p{p}_mm_per_kyr"] = pct[:, j]
-            if self.cover:
-                soluble_known = self.covered_soluble_area_km2 + self.exposed_soluble_area_km2
-                cols["covered_soluble_area_km2"] = self.covered_soluble_area_km2
-                cols["exposed_soluble_area_km2"] = self.exposed_soluble_area_km2
-                cols["covered_soluble_share"] = np.where(
-                    soluble_known > 0, self.covered_soluble_area_km2 / np.where(soluble_known > 0, soluble_known, 1),
-                    np.nan)
-            cols["rock_volume_m3_per_yr"] = self.sum_w_rate
-            cols["rock_mass_t_per_yr"] = self.sum_w_rate_density
-            cols["co2_drawdown_t_per_yr"] = self.sum_w_co2
-            if self.n_classes:
-                names = [column_label(c) for c in (class_names or [str(k) for k in range(self.n_classes)])]
-                for k, name in enumerate(names):
-                    cols[f"hazard_area_km2_{name}"] = self.class_area_km2[:, k]
-                for k, name in enumerate(names):
-                    cols[f"hazard_share_{name}"] = np.where(
-                        some, self.class_area_km2[:, k] / np.where(some, area, 1), np.nan
-                    )
-                present = self.class_area_km2 > 0
-                top = self.n_classes - 1 - np.argmax(present[:, ::-1], axis=1)
-                cols["hazard_max_class"] = np.where(present.any(axis=1), top, -1).astype(np.int64)
-                labels = list(class_names or [str(k) for k in range(self.n_classes)])
-                cols["hazard_max_name"] = np.array(
-                    [labels[k] if k >= 0 else "" for k in cols["hazard_max_class"]], dtype=object
-                )
-                dominant, highest = dominant_and_highest(self.class_area_km2, area, highest_min_share)
-                for key, value in (("dominant", dominant), ("highest", highest)):
-                    cols[f"hazard_{key}_class"] = value
-                    cols[f"hazard_{key}_name"] = np.array([labels[k] if k >= 0 else "" for k in value], dtype=object)
-            if self.n_rocks:
-                labels = list(rock_names or [str(k) for k in range(self.n_rocks)])
-                best = np.argmax(self.rock_area_km2, axis=1)
-                found = self.rock_area_km2.max(axis=1) > 0
-                cols["dominant_rock"] = np.array(
-                    [labels[b] if f else "" for b, f in zip(best, found)], dtype=object
-                )
-                cols["dominant_rock_share"] = np.where(
-                    found & some, self.rock_area_km2.max(axis=1) / np.where(some, area, 1), np.nan
-                )
-            if with_points or (with_points is None and self.point_count.any()):
-                pmean = np.where(self.point_valid > 0, self.point_sum_rate / np.maximum(self.point_valid, 1), np.nan)
-                cols["sinkhole_count"] = self.point_count
-                cols["sinkhole_density_per_km2"] = np.where(some, self.point_count / np.where(some, area, 1), np.nan)
-                cols["sinkhole_mean_rate_mm_per_kyr"] = pmean
-                cols["sinkhole_rate_ratio"] = np.where(mean > 0, pmean / np.where(mean > 0, mean, 1), np.nan)
-        return cols
-
-
-def column_label(name: str) -> str:
-    """A class or rock name as a column suffix: lower case, runs of other characters -> '_'."""
-    out = "".join(ch if ch.isalnum() else "_" for ch in str(name).strip().lower())
-    while "__" in out:
-        out = out.replace("__", "_")
-    return out.strip("_") or "unnamed"
+        return zone_columns(self, class_names, rock_names, with_points, highest_min_share)

@@ -242,30 +242,13 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
 
     from denude.execution.summaries import zone_partials
     from denude.io.grid import Grid, zone_areas_km2
-    from denude.io.map_folder import RATE_TIF, ROCKS_CSV, output_file
-    from denude.reports.summary_files import sidecar_head
-    from denude.io.rasters import file_sha256
+    from denude.io.map_folder import ROCKS_CSV
     from denude.io.rock_csv import read_rock_table
     from denude.io.samples import read_samples
-    from denude.io.outdir import remove_dead_staging
-    from denude.io.vectors import read_polygons, write_layers
+    from denude.io.vectors import read_polygons
 
-    if unsampled not in UNSAMPLED_CHOICES:
-        raise InputError(f"unsampled rule {unsampled!r} is unknown; choose one of {', '.join(UNSAMPLED_CHOICES)}")
     outdir, out = Path(outdir), Path(out)
-    rate_path = output_file(outdir, RATE_TIF)
-    if not rate_path.is_file() or not (outdir / ROCKS_CSV).is_file():
-        raise InputError(f"{outdir}: no {RATE_TIF} or {ROCKS_CSV}; give the output folder of 'denude map'")
-    finals = [out / TABLE_GPKG, out / TABLE_CSV, out / EXPECTED_TIF, out / SIDECAR]
-    if out.exists() and not out.is_dir():
-        raise OutputError(f"{out}: exists and is not a folder; choose an output folder")
-    if out.resolve() == outdir.resolve():
-        raise OutputError(f"{out}: is the map folder; choose another output folder")
-    if not overwrite:
-        for item in finals:
-            if item.exists():
-                raise OutputError(f"{item}: already exists; remove it, choose another --out or pass --overwrite")
-
+    rate_path, finals = _check_folders(outdir, out, unsampled, overwrite)
     samples = read_samples(samples_path)
     with rasterio.open(rate_path) as ds:
         grid = Grid.from_dataset(ds)
@@ -283,7 +266,65 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
     dominant = _dominant_soluble_rock(acc, lookup, rock_names)
     dens = _density_purity(acc, lookup, n)
 
-    # samples -> sites -> zones, discharge-weighted
+    z = _pool_zones(samples, zone_of, zone_area, n)
+    loads = apportion_minerals(mg_per_l_to_mmol_per_l(z["ions"]["ca_mg_l"], MOLAR_MASS_CA_G_PER_MOL),
+                               mg_per_l_to_mmol_per_l(z["ions"]["mg_mg_l"], MOLAR_MASS_MG_G_PER_MOL),
+                               mg_per_l_to_mmol_per_l(z["ions"]["so4_mg_l"], MOLAR_MASS_SO4_G_PER_MOL))
+    observed = np.where(z["sampled"], observed_denudation_mm_per_kyr(loads, z["runoff"], dens), np.nan)
+    si = _zone_saturation_indices(samples, z["q"], zone_of, n)
+    ratio, rule = _ratios(observed, maximum, z["sampled"], dominant, cols["area_km2"], unsampled)
+    table_cols = {
+        zones.id_field: zones.ids,
+        "n_samples": np.bincount(zone_of, minlength=n),
+        "n_sites": np.bincount(z["site_zone"], minlength=n),
+        "zone_area_km2": zone_area,
+        "runoff_mm_per_yr": z["runoff"],
+        "discharge_l_s": z["discharge"],
+        "ca_mg_l": z["ions"]["ca_mg_l"], "mg_mg_l": z["ions"]["mg_mg_l"], "so4_mg_l": z["ions"]["so4_mg_l"],
+        "calcite_mmol_l": loads.calcite_mmol_l, "dolomite_mmol_l": loads.dolomite_mmol_l,
+        "gypsum_mmol_l": loads.gypsum_mmol_l, "excess_mg_mmol_l": loads.excess_mg_mmol_l,
+        "excess_so4_mmol_l": loads.excess_so4_mmol_l,
+        **{f"density_purity_{m}_g_cm3": dens[m] for m in ("calcite", "dolomite", "gypsum")},
+        "dominant_soluble_rock": dominant,
+        "observed_denudation_mm_per_kyr": observed,
+        "maximum_denudation_mm_per_kyr": maximum,
+        "saturation_ratio": ratio,
+        "expected_denudation_mm_per_kyr": maximum * ratio,
+        "si_calcite": si["si_calcite"], "si_dolomite": si["si_dolomite"], "si_gypsum": si["si_gypsum"],
+        "ratio_rule": rule,
+    }
+    frame = geopandas.GeoDataFrame(table_cols, geometry=list(zones.frame.geometry.values), crs=zones.frame.crs)
+    meta = _sidecar(outdir, out, samples, zones, zones_path, unsampled, z["n_sites"], int(z["sampled"].sum()))
+    _write_outputs(out, finals, frame, meta, rate_path, zones.geometry, zone_area, ratio)
+    meta["table"] = frame
+    return meta
+
+
+def _check_folders(outdir: Path, out: Path, unsampled: str, overwrite: bool):
+    """The map's rate raster and the four output paths, after the one-line checks of the folders."""
+    from denude.io.map_folder import RATE_TIF, ROCKS_CSV, output_file
+
+    if unsampled not in UNSAMPLED_CHOICES:
+        raise InputError(f"unsampled rule {unsampled!r} is unknown; choose one of {', '.join(UNSAMPLED_CHOICES)}")
+    rate_path = output_file(outdir, RATE_TIF)
+    if not rate_path.is_file() or not (outdir / ROCKS_CSV).is_file():
+        raise InputError(f"{outdir}: no {RATE_TIF} or {ROCKS_CSV}; give the output folder of 'denude map'")
+    finals = [out / TABLE_GPKG, out / TABLE_CSV, out / EXPECTED_TIF, out / SIDECAR]
+    if out.exists() and not out.is_dir():
+        raise OutputError(f"{out}: exists and is not a folder; choose an output folder")
+    if out.resolve() == outdir.resolve():
+        raise OutputError(f"{out}: is the map folder; choose another output folder")
+    if not overwrite:
+        for item in finals:
+            if item.exists():
+                raise OutputError(f"{item}: already exists; remove it, choose another --out or pass --overwrite")
+    return rate_path, finals
+
+
+def _pool_zones(samples, zone_of, zone_area, n: int) -> dict:
+    """Samples -> sites -> zones, discharge-weighted: per-sample discharge ``q`` [L/s], the
+    zone of each site, per-zone ion concentrations [mg/L] and temperature, runoff [mm/yr] and
+    discharge [L/s], and which zones have samples."""
     q, runoff = _site_weights(samples, zone_of, zone_area)
     site_keys = sorted({(int(z), s) for z, s in zip(zone_of, samples.site_id)})
     site_index = {key: i for i, key in enumerate(site_keys)}
@@ -298,44 +339,25 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
     zone_runoff = np.array([np.mean(site_runoff[site_zone == z]) if np.any(site_zone == z) else np.nan for z in range(n)])
     zone_q = np.array([np.sum(site_q[site_zone == z]) if np.any(site_zone == z) else np.nan for z in range(n)])
     sampled = np.isin(np.arange(n), site_zone)
+    return {"q": q, "site_zone": site_zone, "n_sites": n_sites, "ions": zone_ions, "runoff": zone_runoff,
+            "discharge": zone_q, "sampled": sampled}
 
-    loads = apportion_minerals(mg_per_l_to_mmol_per_l(zone_ions["ca_mg_l"], MOLAR_MASS_CA_G_PER_MOL),
-                               mg_per_l_to_mmol_per_l(zone_ions["mg_mg_l"], MOLAR_MASS_MG_G_PER_MOL),
-                               mg_per_l_to_mmol_per_l(zone_ions["so4_mg_l"], MOLAR_MASS_SO4_G_PER_MOL))
-    observed = np.where(sampled, observed_denudation_mm_per_kyr(loads, zone_runoff, dens), np.nan)
 
-    # saturation indices per sample (mol/kg taken as mol/L / 1 kg/L), then zone means by discharge
+def _zone_saturation_indices(samples, q, zone_of, n: int) -> dict:
+    """Saturation indices per sample (mol/kg taken as mol/L / 1 kg/L), then zone means by discharge."""
     spec = speciate_samples(samples.temperature_c,
                             mg_per_l_to_mmol_per_l(samples.ca_mg_l, MOLAR_MASS_CA_G_PER_MOL) * 1e-3,
                             mg_per_l_to_mmol_per_l(samples.mg_mg_l, MOLAR_MASS_MG_G_PER_MOL) * 1e-3,
                             mg_per_l_to_mmol_per_l(samples.so4_mg_l, MOLAR_MASS_SO4_G_PER_MOL) * 1e-3,
                             alkalinity_meq_per_l(samples.alkalinity_mg_l, samples.alkalinity_as) * 1e-3,
                             samples.ph)
-    si = {name: _pool(getattr(spec, name), q, zone_of, n) for name in ("si_calcite", "si_dolomite", "si_gypsum")}
+    return {name: _pool(getattr(spec, name), q, zone_of, n) for name in ("si_calcite", "si_dolomite", "si_gypsum")}
 
-    area = cols["area_km2"]
-    ratio, rule = _ratios(observed, maximum, sampled, dominant, area, unsampled)
-    table_cols = {
-        zones.id_field: zones.ids,
-        "n_samples": np.bincount(zone_of, minlength=n),
-        "n_sites": np.bincount(site_zone, minlength=n),
-        "zone_area_km2": zone_area,
-        "runoff_mm_per_yr": zone_runoff,
-        "discharge_l_s": zone_q,
-        "ca_mg_l": zone_ions["ca_mg_l"], "mg_mg_l": zone_ions["mg_mg_l"], "so4_mg_l": zone_ions["so4_mg_l"],
-        "calcite_mmol_l": loads.calcite_mmol_l, "dolomite_mmol_l": loads.dolomite_mmol_l,
-        "gypsum_mmol_l": loads.gypsum_mmol_l, "excess_mg_mmol_l": loads.excess_mg_mmol_l,
-        "excess_so4_mmol_l": loads.excess_so4_mmol_l,
-        **{f"density_purity_{m}_g_cm3": dens[m] for m in ("calcite", "dolomite", "gypsum")},
-        "dominant_soluble_rock": dominant,
-        "observed_denudation_mm_per_kyr": observed,
-        "maximum_denudation_mm_per_kyr": maximum,
-        "saturation_ratio": ratio,
-        "expected_denudation_mm_per_kyr": maximum * ratio,
-        "si_calcite": si["si_calcite"], "si_dolomite": si["si_dolomite"], "si_gypsum": si["si_gypsum"],
-        "ratio_rule": rule,
-    }
-    frame = geopandas.GeoDataFrame(table_cols, geometry=list(zones.frame.geometry.values), crs=zones.frame.crs)
+
+def _sidecar(outdir: Path, out: Path, samples, zones, zones_path, unsampled: str, n_sites: int, zones_sampled: int) -> dict:
+    """The calibration.summary.json content (inputs with SHA-256, method, units, outputs)."""
+    from denude.io.rasters import file_sha256
+    from denude.reports.summary_files import sidecar_head
 
     run_json = outdir / "run.json"
     chemistry = None
@@ -344,15 +366,15 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
             chemistry = json.loads(run_json.read_text()).get("settings", {}).get("chemistry")
         except (ValueError, OSError):
             chemistry = None
-    meta = {
+    return {
         **sidecar_head("denude calibrate"),
         "calibration_cautions": list(CALIBRATION_CAUTIONS),
         "map_folder": str(outdir.resolve()),
         "map_chemistry": chemistry,
         "samples": {"file": str(samples.path), "sha256": file_sha256(samples.path), "rows": len(samples),
-                    "sites": n_sites, "zones_sampled": int(sampled.sum()),
+                    "sites": n_sites, "zones_sampled": zones_sampled,
                     "alkalinity_as": samples.alkalinity_as.upper()},
-        "zones": {"file": str(zones_path), "layer": zones.layer, "id_field": zones.id_field, "count": n,
+        "zones": {"file": str(zones_path), "layer": zones.layer, "id_field": zones.id_field, "count": len(zones),
                   "sha256": file_sha256(zones_path)},
         "method": {
             "observed_rate": "D_obs = sum_m M_m c_m q / (rho_m purity_m) x 1e-3 mm/kyr (M g/mol, c mmol/L, q mm/yr, rho g/cm3)",
@@ -376,11 +398,17 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
                     "expected_raster": str(out / EXPECTED_TIF), "sidecar": str(out / SIDECAR)},
     }
 
+
+def _write_outputs(out: Path, finals, frame, meta: dict, rate_path, zone_geoms, zone_area, ratio) -> None:
+    """Write the table (GeoPackage, CSV), the expected-rate raster and the sidecar under
+    staging names, then rename them into place (all removed again on any failure)."""
+    from denude.io.outdir import remove_dead_staging, staging_path
+    from denude.io.vectors import write_layers
+
     remove_dead_staging(out)          # staged files of killed runs (their owner process is gone)
     created = not out.exists()
     out.mkdir(parents=True, exist_ok=True)
-    tag = f".partial-{os.getpid()}"
-    temps = {final: final.with_name("." + final.stem + tag + final.suffix) for final in finals}
+    temps = {final: staging_path(final, keep_suffix=True) for final in finals}
     try:
         write_layers(temps[out / TABLE_GPKG], {ZONES_LAYER: frame})
         try:
@@ -390,7 +418,7 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
         tags = {"units": "mm/kyr", "quantity": "expected chemical denudation rate (maximum x zone saturation ratio)",
                 "caution": CAUTION, "upper_bound_note": UPPER_BOUND_NOTE,
                 "samples_sha256": meta["samples"]["sha256"]}
-        _write_expected(rate_path, temps[out / EXPECTED_TIF], zones.geometry, zone_area, ratio, tags)
+        _write_expected(rate_path, temps[out / EXPECTED_TIF], zone_geoms, zone_area, ratio, tags)
         temps[out / SIDECAR].write_text(json.dumps(meta, indent=2, default=str) + "\n", encoding="utf-8")
         for final, tmp in temps.items():
             os.replace(tmp, final)
@@ -401,5 +429,3 @@ def run_calibration(outdir, samples_path, zones_path, out, *, layer=None, id_fie
         if created:
             shutil.rmtree(out, ignore_errors=True)
         raise
-    meta["table"] = frame
-    return meta

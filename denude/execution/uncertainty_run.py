@@ -55,7 +55,7 @@ from denude.execution.window import WindowResult
 from denude.execution.window_inputs import read_window_inputs
 from denude.io.coverage import coverage_pairs
 from denude.io.grid import cell_areas_km2
-from denude.io.outdir import commit_dir, make_staging_dir, remove_dead_staging, remove_path
+from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
 from denude.reports.run_record import RUN_RECORD, run_record, write_run_record
 from denude.reports.summary_files import layer_provenance, sidecar_head, write_summary_files, zone_table
 from denude.io.jobfile import MapSettings
@@ -203,110 +203,20 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
                        lookup.purity, names, pco2_from_aet=settings.pco2_from_aet)
     zplan = _zone_plan(zones, grid) if zones is not None else None
     areas_row, area_method = cell_areas_km2(grid)
-    planar = bool(np.all(areas_row == areas_row[0]))
     n_zones = len(zplan.wkbs) if zplan is not None else 0
     sums = {k: np.zeros((n_zones, n_draws)) for k in ("volume", "mass", "co2")}
     valid_area = np.zeros(n_zones)
-
-    hash_paths = sorted({item.info.path for item in report.inputs.values()
-                         if item.info is not None and not is_virtual_path(item.info.path)}
-                        | {p for p in (settings.rocks, settings.job_file) if p})
-    hashes: dict = {}
-    hasher = threading.Thread(target=lambda: hashes.update({p: file_sha256(p) for p in hash_paths}), daemon=True)
-    hasher.start()
-
-    local = threading.local()
-    all_readers: list = []
-    lock = threading.Lock()
-
-    def work(window):
-        readers = getattr(local, "readers", None)
-        if readers is None:
-            readers = local.readers = InputReaders(plan)
-            with lock:
-                all_readers.append(readers)
-        ranges: dict = {}
-        inputs = read_window_inputs(readers, settings, window, ranges)
-        gain = soil_co2_gain(inputs.aet) if settings.pco2_from_aet else None
-        block = draw_block(inputs.codes, inputs.runoff, inputs.pco2, inputs.temperature, inputs.fraction, lookup,
-                           table, settings.chemistry, spec=spec, seed=seed, row0=int(window.row_off),
-                           col0=int(window.col_off), soil_gain=gain, lithology_valid=inputs.valid, parallel=False)
-        shape = inputs.codes.shape
-        q_rate, q_co2 = block_quantiles(block, table, parallel=False)
-        bands = {"denudation": q_rate.reshape((len(QUANTILES),) + shape),
-                 "co2_drawdown": q_co2.reshape((len(QUANTILES),) + shape)}
-        status = block.status
-        counts = BlockCounts(cells=int(status.size), computed=int(np.count_nonzero(status == 0)),
-                             nodata=int(np.count_nonzero(status == NODATA)),
-                             unknown_code=int(np.count_nonzero(status == UNKNOWN_CODE)),
-                             out_of_range=int(np.count_nonzero(status == OUT_OF_RANGE)))
-        known = block.rock_row >= 0
-        present = np.bincount(block.rock_row[known], minlength=len(lookup.codes)) > 0
-        unknown = ()
-        if counts.unknown_code:
-            flat = inputs.codes.reshape(-1)
-            unknown = tuple(int(c) for c in np.unique(flat[status == UNKNOWN_CODE]))
-        check = WindowResult(window, {}, counts, ranges, tuple(int(c) for c in lookup.codes[present]), unknown)
-        partial = None
-        if zplan is not None:
-            xmin, ybot, xmax, ytop = _window_extent(grid, window)
-            b = zplan.bounds
-            sel = np.flatnonzero(zplan.nonempty & (b[:, 0] < xmax) & (b[:, 2] > xmin) & (b[:, 1] < ytop) & (b[:, 3] > ybot))
-            if sel.size:
-                pairs = coverage_pairs((xmin, ybot, xmax, ytop), int(window.width), int(window.height),
-                                       zplan.wkbs[sel], np.arange(sel.size))
-                row_area = areas_row[:1] if planar else areas_row[int(window.row_off):int(window.row_off + window.height)]
-                part = {k: np.zeros((sel.size, n_draws)) for k in ("volume", "mass", "co2")}
-                area = np.zeros(sel.size)
-                zone_draw_sums(pairs.run_zone, pairs.run_start, pairs.cell, pairs.coverage,
-                               np.ascontiguousarray(row_area, np.float64), int(window.width), block.rate, block.co2,
-                               block.rock_row, table.density, part["volume"], part["mass"], part["co2"], area)
-                partial = (sel, part, area)
-        return window, bands, check, block.clipped_draws, partial
+    hasher, hashes = _start_hashing(report, settings)
+    work = _DrawWorker(plan, settings, spec, seed, lookup, table, zplan, grid, areas_row)
 
     remove_dead_staging(out.parent)
     staging = make_staging_dir(out)
     writers: dict = {}
-    total = BlockCounts()
-    clipped = 0
-    found: set = set()
     outputs: list = []
     try:
-        for layer, stem, unit in BAND_LAYERS:
-            for label in QUANTILE_LABELS:
-                spec_out = band_spec(layer, label, settings, n_draws, seed)
-                writers[(layer, label)] = RasterWriter(staging / spec_out.name, grid, spec_out, settings.block_size,
-                                                       settings.compress, report.layout)
-        with ThreadPoolExecutor(max_workers=settings.workers, thread_name_prefix="denude-draws") as pool:
-            pending: deque = deque()
-            queue = iter(windows)
-            for window in queue:
-                pending.append(pool.submit(work, window))
-                if len(pending) >= settings.workers + 1:
-                    break
-            done = 0
-            while pending:
-                window, bands, check, n_clip, partial = pending.popleft().result()
-                check_window(settings, plan, check)
-                found.update(check.codes_present)
-                nxt = next(queue, None)
-                if nxt is not None:
-                    pending.append(pool.submit(work, nxt))
-                for layer, _, _ in BAND_LAYERS:
-                    for j, label in enumerate(QUANTILE_LABELS):
-                        writers[(layer, label)].write(bands[layer][j], window)
-                total = total + check.counts
-                clipped += n_clip
-                if partial is not None:
-                    sel, part, area = partial
-                    for key in sums:
-                        sums[key][sel] += part[key]
-                    valid_area[sel] += area
-                done += 1
-                if progress is not None:
-                    progress(done, len(windows))
-        for readers in all_readers:
-            readers.close()
+        _open_band_writers(writers, staging, grid, settings, report.layout, n_draws, seed)
+        total, clipped, found = _compute_windows(work, windows, settings, plan, writers, sums, valid_area, progress)
+        work.close()
         for writer in writers.values():
             writer.finish()
         outputs = [writer.close().name for writer in writers.values()]
@@ -327,13 +237,11 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
             record["zones"] = {"path": zones.path, "layer": zones.layer, "id_field": zones.id_field}
         write_run_record(staging / RUN_RECORD, record)
         commit_dir(staging, out, settings.overwrite)
-    except BaseException:
-        for readers in all_readers:
-            readers.close()
+    except BaseException as exc:
+        work.close()
         for writer in writers.values():
             writer.abort()
-        remove_path(staging)
-        raise
+        raise_discarded([(staging, out)], exc)
 
     warn_about_counts({"out_of_range": counts["out_of_range"]})
     if counts["clipped_draws"]:
@@ -345,6 +253,145 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
             f"{counts['clipped_draws']} cell draws left 0-90 degrees C or 1e-8-1 atm and were clipped to that range; "
             "check the temperature and PCO2 errors under [uncertainty] if that many is unexpected"), stacklevel=2)
     return UncertaintyRunSummary(str(out), n_draws, seed, outputs + ["run.json"], counts, wall, record)
+
+
+def _start_hashing(report, settings):
+    """A daemon thread filling {path: SHA-256} of the local input files, the rock table and the
+    job file while the draws run; (thread, the dict it fills)."""
+    hash_paths = sorted({item.info.path for item in report.inputs.values()
+                         if item.info is not None and not is_virtual_path(item.info.path)}
+                        | {p for p in (settings.rocks, settings.job_file) if p})
+    hashes: dict = {}
+    hasher = threading.Thread(target=lambda: hashes.update({p: file_sha256(p) for p in hash_paths}), daemon=True)
+    hasher.start()
+    return hasher, hashes
+
+
+def _open_band_writers(writers: dict, staging, grid, settings, layout, n_draws: int, seed: int) -> None:
+    """Add one RasterWriter per (layer, quantile label) band raster, in the staging folder, to
+    ``writers`` (filled as they open, so a failure aborts those already open)."""
+    for layer, stem, unit in BAND_LAYERS:
+        for label in QUANTILE_LABELS:
+            spec_out = band_spec(layer, label, settings, n_draws, seed)
+            writers[(layer, label)] = RasterWriter(staging / spec_out.name, grid, spec_out, settings.block_size,
+                                                   settings.compress, layout)
+
+
+def _compute_windows(work, windows, settings, plan, writers, sums, valid_area, progress):
+    """Run ``work`` over the windows on a thread pool (at most workers + 1 in flight), check
+    and write each result in order on this thread and add its zone sums into ``sums`` and
+    ``valid_area``; (BlockCounts total, clipped draws, lithology codes found)."""
+    total = BlockCounts()
+    clipped = 0
+    found: set = set()
+    with ThreadPoolExecutor(max_workers=settings.workers, thread_name_prefix="denude-draws") as pool:
+        pending: deque = deque()
+        queue = iter(windows)
+        for window in queue:
+            pending.append(pool.submit(work, window))
+            if len(pending) >= settings.workers + 1:
+                break
+        done = 0
+        while pending:
+            window, bands, check, n_clip, partial = pending.popleft().result()
+            check_window(settings, plan, check)
+            found.update(check.codes_present)
+            nxt = next(queue, None)
+            if nxt is not None:
+                pending.append(pool.submit(work, nxt))
+            for layer, _, _ in BAND_LAYERS:
+                for j, label in enumerate(QUANTILE_LABELS):
+                    writers[(layer, label)].write(bands[layer][j], window)
+            total = total + check.counts
+            clipped += n_clip
+            if partial is not None:
+                sel, part, area = partial
+                for key in sums:
+                    sums[key][sel] += part[key]
+                valid_area[sel] += area
+            done += 1
+            if progress is not None:
+                progress(done, len(windows))
+    return total, clipped, found
+
+
+class _DrawWorker:
+    """The per-window step of an uncertainty run, called from pool threads: read the window's
+    inputs (one ``InputReaders`` per thread), draw, per-cell quantiles, the window's counts for
+    the rule book and, with zones, its per-(zone, draw) sums."""
+
+    def __init__(self, plan, settings, spec, seed, lookup, table, zplan, grid, areas_row):
+        self.plan, self.settings, self.spec, self.seed = plan, settings, spec, seed
+        self.lookup, self.table, self.zplan, self.grid = lookup, table, zplan, grid
+        self.areas_row = areas_row
+        self.planar = bool(np.all(areas_row == areas_row[0]))
+        self._local = threading.local()
+        self._lock = threading.Lock()
+        self._all_readers: list = []
+
+    def close(self) -> None:
+        for readers in self._all_readers:
+            readers.close()
+
+    def _readers(self):
+        readers = getattr(self._local, "readers", None)
+        if readers is None:
+            readers = self._local.readers = InputReaders(self.plan)
+            with self._lock:
+                self._all_readers.append(readers)
+        return readers
+
+    def __call__(self, window):
+        settings, lookup, table = self.settings, self.lookup, self.table
+        ranges: dict = {}
+        inputs = read_window_inputs(self._readers(), settings, window, ranges)
+        gain = soil_co2_gain(inputs.aet) if settings.pco2_from_aet else None
+        block = draw_block(inputs.codes, inputs.runoff, inputs.pco2, inputs.temperature, inputs.fraction, lookup,
+                           table, settings.chemistry, spec=self.spec, seed=self.seed, row0=int(window.row_off),
+                           col0=int(window.col_off), soil_gain=gain, lithology_valid=inputs.valid, parallel=False)
+        shape = inputs.codes.shape
+        q_rate, q_co2 = block_quantiles(block, table, parallel=False)
+        bands = {"denudation": q_rate.reshape((len(QUANTILES),) + shape),
+                 "co2_drawdown": q_co2.reshape((len(QUANTILES),) + shape)}
+        check = _window_result(window, block, inputs.codes, ranges, lookup)
+        partial = self._zone_sums(window, block) if self.zplan is not None else None
+        return window, bands, check, block.clipped_draws, partial
+
+    def _zone_sums(self, window, block):
+        """(zone indices, {volume, mass, co2: (zones, draws)}, covered valid area [km2]) of the
+        zones overlapping the window, or None."""
+        zplan, n_draws = self.zplan, self.table.density.shape[0]
+        xmin, ybot, xmax, ytop = _window_extent(self.grid, window)
+        b = zplan.bounds
+        sel = np.flatnonzero(zplan.nonempty & (b[:, 0] < xmax) & (b[:, 2] > xmin) & (b[:, 1] < ytop) & (b[:, 3] > ybot))
+        if not sel.size:
+            return None
+        pairs = coverage_pairs((xmin, ybot, xmax, ytop), int(window.width), int(window.height),
+                               zplan.wkbs[sel], np.arange(sel.size))
+        areas_row = self.areas_row
+        row_area = areas_row[:1] if self.planar else areas_row[int(window.row_off):int(window.row_off + window.height)]
+        part = {k: np.zeros((sel.size, n_draws)) for k in ("volume", "mass", "co2")}
+        area = np.zeros(sel.size)
+        zone_draw_sums(pairs.run_zone, pairs.run_start, pairs.cell, pairs.coverage,
+                       np.ascontiguousarray(row_area, np.float64), int(window.width), block.rate, block.co2,
+                       block.rock_row, self.table.density, part["volume"], part["mass"], part["co2"], area)
+        return sel, part, area
+
+
+def _window_result(window, block, codes, ranges, lookup) -> WindowResult:
+    """The window's counts, rock codes present and unknown codes, for ``check_window``."""
+    status = block.status
+    counts = BlockCounts(cells=int(status.size), computed=int(np.count_nonzero(status == 0)),
+                         nodata=int(np.count_nonzero(status == NODATA)),
+                         unknown_code=int(np.count_nonzero(status == UNKNOWN_CODE)),
+                         out_of_range=int(np.count_nonzero(status == OUT_OF_RANGE)))
+    known = block.rock_row >= 0
+    present = np.bincount(block.rock_row[known], minlength=len(lookup.codes)) > 0
+    unknown = ()
+    if counts.unknown_code:
+        flat = codes.reshape(-1)
+        unknown = tuple(int(c) for c in np.unique(flat[status == UNKNOWN_CODE]))
+    return WindowResult(window, {}, counts, ranges, tuple(int(c) for c in lookup.codes[present]), unknown)
 
 
 def zone_columns(sums: dict, valid_area: np.ndarray, inputs: np.ndarray, input_names) -> dict:

@@ -1,16 +1,17 @@
 """Settings of a raster job (`denude map`, `denude batch`), from command-line flags and/or a TOML job file.
 
-The job file has the sections ``[inputs]``, ``[grid]``, ``[run]``, ``[hazard]`` and ``[batch]``;
-``JOB_TABLE`` below is the one list of their keys (every key optional except those a run needs;
-flags override the file; relative paths resolve against the job file's folder). `denude init
-DIR` writes a commented template generated from that table (``job_template``).
+The job file has the sections ``[inputs]``, ``[grid]``, ``[run]``, ``[hazard]`` and ``[batch]``
+(plus ``[uncertainty]`` and ``[scenario]``, parsed in ``io/uncertainty_spec.py``);
+``io/job_table.py`` holds ``JOB_TABLE``, the one list of their keys (every key optional except
+those a run needs; flags override the file; relative paths resolve against the job file's
+folder), and the `denude init` template generated from it. This module loads and checks them
+into ``MapSettings``.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import difflib
-import json
 import math
 import os
 from dataclasses import dataclass
@@ -21,15 +22,19 @@ try:  # Python 3.11+
 except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
-from denude.cautions import CAUTION
 from denude.core.cover import check_min_thickness
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
 from denude.core.scenario import Scenario
-from denude.errors import DenudeError, InputError, JobFileError, OutputError
-
 from denude.core.units import require_unit
-from denude.registry import (ALL_LAYERS, CHOICES, INPUT_ROLES, LAYERS, OUTPUT_LAYERS, PATH_FIELDS, PCO2_FROM_AET,
-                             REFUSED_LITHOLOGY_RESAMPLING, UNIT_FIELDS, VALUE_FIELDS, default_layers)
+from denude.errors import DenudeError, InputError, JobFileError
+# the table and the starter files moved to io/job_table.py; re-exported for the old import path
+from denude.io.job_table import (BATCH_KEYS, BATCH_PATH_KEYS, BATCH_SECTION, JOB_TABLE,  # noqa: F401
+                                 JOB_TEMPLATE_NAME, OTHER_SECTIONS, ROCKS_TEMPLATE_NAME, SECTIONS, JobKey,
+                                 job_template, write_starter_files)
+from denude.registry import (ALL_LAYERS, CHOICES, INPUT_ROLES, LAYERS, OUTPUT_LAYERS, PATH_FIELDS,  # noqa: F401
+                             PCO2_FROM_AET, REFUSED_LITHOLOGY_RESAMPLING, UNIT_FIELDS, VALUE_FIELDS,
+                             default_layers)
+
 
 def available_cores() -> int:
     """Cores this process may run on (``os.sched_getaffinity``; ``os.cpu_count`` where that is
@@ -39,122 +44,6 @@ def available_cores() -> int:
     except AttributeError:  # pragma: no cover - not on Linux
         return max(1, os.cpu_count() or 1)
 
-
-@dataclass(frozen=True)
-class JobKey:
-    """One key of a job-file section: the settings field it fills, an example value for the
-    template `denude init` writes, a one-line help, and whether the template leaves it active."""
-
-    field: str
-    example: object
-    help: str
-    active: bool = False
-
-
-def _role_help(name: str) -> str:
-    return INPUT_ROLES[name].help
-
-
-def _choices(name: str) -> str:
-    return " | ".join(CHOICES[name])
-
-
-#: The one table of job-file sections: section -> {key: JobKey}. The loader, the [batch]
-#: reader and the `denude init` template all read it.
-JOB_TABLE: dict[str, dict[str, JobKey]] = {
-    "inputs": {
-        "lithology": JobKey("lithology", "lithology.tif", _role_help("lithology"), True),
-        "rocks": JobKey("rocks", "rocks.csv", "Rock table CSV (code,name,mineral,density_g_cm3,purity); "
-                        "built-in table when omitted.", True),
-        "runoff": JobKey("runoff", "runoff.tif", "Runoff, mm/yr: a raster path or a number.", True),
-        "precipitation": JobKey("precipitation", "precipitation.tif",
-                                "Precipitation, mm/yr, with aet instead of runoff (runoff = P - AET, >= 0)."),
-        "aet": JobKey("aet", "aet.tif", "Actual evapotranspiration, mm/yr: a raster path or a number."),
-        "pco2": JobKey("pco2", 0.01, f"Soil PCO2 in pco2_units (raster or number), or \"{PCO2_FROM_AET}\" "
-                       "for Brook et al. (1983) from aet.", True),
-        "pco2_units": JobKey("pco2_units", CHOICES["pco2_units"][0], f"Units of pco2: {_choices('pco2_units')} "
-                             "(default: the raster's declared unit, else atm).", True),
-        "elevation": JobKey("elevation", "dem.tif", "Elevation, m above sea level (raster or number); "
-                            "converts ppmv PCO2 to atm."),
-        "air_pressure_atm": JobKey("air_pressure_atm", 1.0, "Air pressure, atm, for ppmv PCO2, instead of "
-                                   "elevation (default 1 atm)."),
-        "temperature": JobKey("temperature", 10.0, "Temperature, degrees C: a raster path or a number.", True),
-        "soluble_fraction": JobKey("soluble_fraction", 1.0, _role_help("soluble_fraction")),
-        "cover": JobKey("cover", "cover_thickness.tif",
-                        "Insoluble cover over the bedrock: thickness, m, or a 0/1 mask (raster or number); adds the "
-                        "covered_karst layer (the rate is unchanged)."),
-        "cover_min_thickness_m": JobKey("cover_min_thickness_m", 0.0,
-                                        "Least cover thickness, m, that counts as cover (default 0: any thickness > 0, "
-                                        "a mask value of 1)."),
-        **{field: JobKey(field, CHOICES[field][1], f"Units of {role}: {_choices(field)} (default: the raster's "
-                         f"declared unit, else {CHOICES[field][0]}); wins over the raster's metadata.")
-           for field, role in UNIT_FIELDS.items() if field != "pco2_units"},
-    },
-    "grid": {
-        "like": JobKey("grid_like", "other.tif", "Use this raster's grid (default: the lithology raster's grid)."),
-        "crs": JobKey("grid_crs", "EPSG:3035", "Or a target CRS, with resolution."),
-        "resolution": JobKey("grid_resolution", 1000.0, "Cell size in CRS units: one number or [x, y]."),
-        "bounds": JobKey("grid_bounds", [4000000.0, 2600000.0, 4100000.0, 2700000.0],
-                         "[left, bottom, right, top] in CRS units; default: the lithology extent in crs, "
-                         "snapped outward to whole cells."),
-    },
-    "run": {
-        "out": JobKey("out", "out", "Output folder (refused if it exists, unless overwrite).", True),
-        "chemistry": JobKey("chemistry", CHOICES["chemistry"][0],
-                            f"{_choices('chemistry')}: White (1984) closed form or full carbonate speciation.", True),
-        "overwrite": JobKey("overwrite", False, "Replace an existing output folder."),
-        "workers": JobKey("workers", 2, "Parallel workers (default: the cores available)."),
-        "block_size": JobKey("block_size", 512, "Block and output tile size, cells (a multiple of 16)."),
-        "gdal_cache_mb": JobKey("gdal_cache_mb", 128, "GDAL block cache, MB."),
-        "layers": JobKey("layers", list(LAYERS), "Output layers (default all; covered_karst when a cover is given)."),
-        "layout": JobKey("layout", CHOICES["layout"][0], f"{_choices('layout')}: COG up to 8192 x 8192 cells, "
-                         "else tiled BigTIFF."),
-        "compress": JobKey("compress", CHOICES["compress"][0], f"{_choices('compress')}."),
-        "lithology_resampling": JobKey("lithology_resampling", CHOICES["lithology_resampling"][0],
-                                       f"{_choices('lithology_resampling')} (interpolating methods are refused)."),
-        "continuous_resampling": JobKey("continuous_resampling", CHOICES["continuous_resampling"][0],
-                                        f"{_choices('continuous_resampling')}."),
-        "negative_runoff": JobKey("negative_runoff", CHOICES["negative_runoff"][0],
-                                  f"{_choices('negative_runoff')}: refuse negative runoff cells, or take them "
-                                  "as 0 mm/yr (counted in a warning)."),
-        "out_of_range": JobKey("out_of_range", CHOICES["out_of_range"][0],
-                               f"{_choices('out_of_range')}: refuse continuous input cells outside their plausible "
-                               "range (or not finite), or take them as nodata (counted per input)."),
-        "below_freezing": JobKey("below_freezing", CHOICES["below_freezing"][0],
-                                 f"{_choices('below_freezing')}: temperature cells below 0 degrees C become nodata, "
-                                 "or are taken as 0 degrees C water (counted)."),
-    },
-    "hazard": {
-        "breaks_mm_per_kyr": JobKey("hazard_breaks_mm_per_kyr", list(DEFAULT_BREAKS_MM_PER_KYR),
-                                    "Class breaks, mm/kyr, increasing."),
-        "names": JobKey("hazard_names", list(DEFAULT_CLASS_NAMES), "Class names, one more than the breaks."),
-    },
-    "batch": {
-        "tile_size": JobKey("tile_size", 4096, "Tile side, cells, a multiple of 16 (`denude batch` only)."),
-        "workers": JobKey("workers", 2, "Local worker processes (default: the cores available; 0 = in this "
-                          "process)."),
-        "scheduler": JobKey("scheduler", "tcp://SCHEDULER:8786", "Run on an existing Dask cluster."),
-        "retries": JobKey("retries", 0, "Extra attempts for a failing tile."),
-        "merge": JobKey("merge", False, "Also write one merged cloud-optimised GeoTIFF per layer."),
-        "zones": JobKey("zones", "watersheds.gpkg", "Zone polygons: per-zone summaries merged from the tiles."),
-        "zones_layer": JobKey("zones_layer", "watersheds", "Layer of the zone file."),
-        "zones_id_field": JobKey("zones_id_field", "watershed_id", "Zone id field (default: feature ids)."),
-    },
-}
-
-#: Sections that fill MapSettings; [batch] holds the options of `denude batch` only.
-BATCH_SECTION = "batch"
-
-#: Job-file sections -> {key: MapSettings field} (the map sections of ``JOB_TABLE``).
-SECTIONS = {section: {key: spec.field for key, spec in keys.items()}
-            for section, keys in JOB_TABLE.items() if section != BATCH_SECTION}
-
-#: [batch] keys (options of `run_batch`, not MapSettings fields).
-BATCH_KEYS = tuple(JOB_TABLE[BATCH_SECTION])
-
-#: Sections parsed and checked in ``io/uncertainty_spec.py``: [uncertainty] is read by the
-#: uncertainty run; [scenario] becomes ``MapSettings.scenario``.
-OTHER_SECTIONS = ("uncertainty", "scenario")
 
 
 @dataclass(frozen=True)
@@ -434,7 +323,8 @@ def read_job_file(path) -> dict:
 
 def read_batch_options(path) -> dict:
     """The [batch] table of a job file as {key: value} (empty without one): integers, a bool for
-    ``merge``, strings, and ``zones`` as an absolute path resolved against the file's folder."""
+    ``merge``, strings, and the vector files (``BATCH_PATH_KEYS``: zones, planning units, sinkhole
+    points) as absolute paths resolved against the file's folder."""
     path = Path(path)
     table = _job_tables(path).get(BATCH_SECTION, {})
     base = path.resolve().parent
@@ -448,7 +338,7 @@ def read_batch_options(path) -> dict:
             raise JobFileError(f"{where} = {value!r} must be true or false")
         if kind is str and not isinstance(value, str):
             raise JobFileError(f"{where} = {value!r} must be a string")
-        out[key] = _parse_path(value, base) if key == "zones" else value
+        out[key] = _parse_path(value, base) if key in BATCH_PATH_KEYS else value
     return out
 
 
@@ -538,57 +428,3 @@ def build_settings(flags: dict | None = None, job_file=None) -> MapSettings:
     return MapSettings(**values)
 
 
-# ----------------------------------------------------------------------------- starter files
-JOB_TEMPLATE_NAME = "job.toml"
-ROCKS_TEMPLATE_NAME = "rocks.csv"
-
-
-def _toml_value(value) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        return repr(value)
-    if isinstance(value, (list, tuple)):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    return json.dumps(str(value))        # a TOML basic string: JSON escapes are valid TOML escapes
-
-
-def job_template() -> str:
-    """A commented job file with every key the loader knows, generated from ``JOB_TABLE``.
-    The keys a first run needs are active (edit their values); the others are commented out,
-    showing an example value."""
-    lines = [
-        "# denude job file. Check it with `denude check --job job.toml`, run it with",
-        "# `denude map --job job.toml` (or `denude batch --job job.toml`). Flags override the file;",
-        "# relative paths resolve against this file's folder. Remove the leading '# ' to use a key.",
-        f"# {CAUTION}",
-    ]
-    for section, keys in JOB_TABLE.items():
-        lines += ["", f"[{section}]"]
-        for key, spec in keys.items():
-            lines.append(f"# {spec.help}")
-            lines.append(("" if spec.active else "# ") + f"{key} = {_toml_value(spec.example)}")
-    return "\n".join(lines) + "\n"
-
-
-def write_starter_files(folder, overwrite: bool = False) -> list[Path]:
-    """Write ``job.toml`` (the commented template) and ``rocks.csv`` (an editable copy of the
-    built-in rock table) into ``folder`` (created if needed); return the paths written. Existing
-    files are refused unless ``overwrite``."""
-    from denude.core.rocks import RockTable
-    from denude.io.rock_csv import write_rock_table
-
-    folder = Path(folder)
-    if folder.exists() and not folder.is_dir():
-        raise OutputError(f"{folder} is a file; give a folder for the starter files")
-    targets = [folder / JOB_TEMPLATE_NAME, folder / ROCKS_TEMPLATE_NAME]
-    existing = [str(p) for p in targets if p.exists()]
-    if existing and not overwrite:
-        raise OutputError(f"{', '.join(existing)} already exists; choose another folder or pass --overwrite")
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        targets[0].write_text(job_template(), encoding="utf-8")
-        write_rock_table(RockTable.builtin(), targets[1])
-    except OSError as exc:
-        raise OutputError(f"cannot write the starter files into {folder} ({exc.strerror}); choose a writable folder") from None
-    return targets

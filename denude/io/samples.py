@@ -100,26 +100,8 @@ def read_samples(path) -> SampleTable:
             raise InputError(f"{path}: the sample file is empty; give a CSV with a header row (site_id, zone_id, ...)") from None
         except csv.Error as exc:
             raise InputError(f"{path}: row 1: not a readable CSV ({exc})") from None
-        names = [h.strip().lower() for h in header]
-        dup = sorted({n for n in names if n and names.count(n) > 1})
-        if dup:
-            raise InputError(f"{path}: row 1: column {dup[0]!r} appears twice; keep one")
-        col = {n: i for i, n in enumerate(names)}
-        missing = [c for c in REQUIRED if c not in col]
-        if missing:
-            raise InputError(f"{path}: row 1: missing column(s) {', '.join(missing)}; the header needs "
-                             f"{', '.join(REQUIRED)}, zone_id or x,y, an alkalinity column and runoff or discharge")
+        names, col, alk, flows = _check_header(path, header)
         by_xy = "zone_id" not in col
-        if by_xy and not ("x" in col and "y" in col):
-            raise InputError(f"{path}: row 1: no zone_id column and no x,y columns; give the zone each site drains")
-        alk = [c for c in ALKALINITY_COLUMNS if c in col]
-        if len(alk) != 1:
-            raise InputError(f"{path}: row 1: give exactly one of the columns alkalinity_mg_l_hco3, alkalinity_mg_l_caco3 "
-                             f"(found {', '.join(alk) or 'none'})")
-        flows = [c for c in FLOW_COLUMNS if c in col]
-        if not flows:
-            raise InputError(f"{path}: row 1: no runoff_mm_per_yr, discharge_l_s or discharge_m3_s column; give one")
-
         values = {k: [] for k in ("site_id", "zone_id", "x", "y", "temperature_c", "ca_mg_l", "mg_mg_l", "so4_mg_l",
                                   "alk", "ph", "runoff_mm_per_yr", "discharge_l_s", "row")}
         row = 1
@@ -131,36 +113,7 @@ def read_samples(path) -> SampleTable:
                 if len(cells) > len(names):
                     raise InputError(f"{path}: row {row}: {len(cells)} values but {len(names)} columns; check the separators")
                 cells = cells + [""] * (len(names) - len(cells))
-
-                def get(name):
-                    return cells[col[name]] if name in col else ""
-
-                site = get("site_id").strip()
-                if not site:
-                    raise InputError(f"{path}: row {row}: column 'site_id' is empty; give every sample its site")
-                values["site_id"].append(site)
-                if by_xy:
-                    values["x"].append(_number(path, row, "x", get("x"), True))
-                    values["y"].append(_number(path, row, "y", get("y"), True))
-                else:
-                    zone = get("zone_id").strip()
-                    if not zone:
-                        raise InputError(f"{path}: row {row}: column 'zone_id' is empty; give the zone the site drains")
-                    values["zone_id"].append(zone)
-                for name in ("temperature_c", "ca_mg_l", "mg_mg_l", "so4_mg_l"):
-                    values[name].append(_number(path, row, name, get(name), True))
-                values["alk"].append(_number(path, row, alk[0], get(alk[0]), False))
-                values["ph"].append(_number(path, row, "ph", get("ph"), False))
-                runoff = _number(path, row, "runoff_mm_per_yr", get("runoff_mm_per_yr"), False)
-                q_l_s = _number(path, row, "discharge_l_s", get("discharge_l_s"), False)
-                q_m3_s = _number(path, row, "discharge_m3_s", get("discharge_m3_s"), False)
-                if np.isnan(q_l_s) and not np.isnan(q_m3_s):
-                    q_l_s = q_m3_s * 1000.0
-                if np.isnan(runoff) and np.isnan(q_l_s):
-                    raise InputError(f"{path}: row {row}: no runoff or discharge value; fill {' or '.join(flows)}")
-                values["runoff_mm_per_yr"].append(runoff)
-                values["discharge_l_s"].append(q_l_s)
-                values["row"].append(row)
+                _read_row(path, row, {name: cells[i] for name, i in col.items()}, by_xy, alk, flows, values)
         except csv.Error as exc:
             raise InputError(f"{path}: row {row}: not a readable CSV ({exc})") from None
     if not values["site_id"]:
@@ -175,3 +128,62 @@ def read_samples(path) -> SampleTable:
         runoff_mm_per_yr=f("runoff_mm_per_yr"), discharge_l_s=f("discharge_l_s"),
         rows=np.asarray(values["row"], dtype=np.int64),
     )
+
+
+def _check_header(path, header):
+    """(column names, {name: index}, [the alkalinity column], flow columns present) of a checked
+    header row: no duplicates, the required columns, zone_id or x,y, one alkalinity column and
+    a runoff or discharge column."""
+    names = [h.strip().lower() for h in header]
+    dup = sorted({n for n in names if n and names.count(n) > 1})
+    if dup:
+        raise InputError(f"{path}: row 1: column {dup[0]!r} appears twice; keep one")
+    col = {n: i for i, n in enumerate(names)}
+    missing = [c for c in REQUIRED if c not in col]
+    if missing:
+        raise InputError(f"{path}: row 1: missing column(s) {', '.join(missing)}; the header needs "
+                         f"{', '.join(REQUIRED)}, zone_id or x,y, an alkalinity column and runoff or discharge")
+    if "zone_id" not in col and not ("x" in col and "y" in col):
+        raise InputError(f"{path}: row 1: no zone_id column and no x,y columns; give the zone each site drains")
+    alk = [c for c in ALKALINITY_COLUMNS if c in col]
+    if len(alk) != 1:
+        raise InputError(f"{path}: row 1: give exactly one of the columns alkalinity_mg_l_hco3, alkalinity_mg_l_caco3 "
+                         f"(found {', '.join(alk) or 'none'})")
+    flows = [c for c in FLOW_COLUMNS if c in col]
+    if not flows:
+        raise InputError(f"{path}: row 1: no runoff_mm_per_yr, discharge_l_s or discharge_m3_s column; give one")
+    return names, col, alk, flows
+
+
+def _read_row(path, row: int, cells: dict, by_xy: bool, alk, flows, values: dict) -> None:
+    """Check one sample row ({column: text}) and append its values to the lists in ``values``."""
+
+    def get(name):
+        return cells.get(name, "")
+
+    site = get("site_id").strip()
+    if not site:
+        raise InputError(f"{path}: row {row}: column 'site_id' is empty; give every sample its site")
+    values["site_id"].append(site)
+    if by_xy:
+        values["x"].append(_number(path, row, "x", get("x"), True))
+        values["y"].append(_number(path, row, "y", get("y"), True))
+    else:
+        zone = get("zone_id").strip()
+        if not zone:
+            raise InputError(f"{path}: row {row}: column 'zone_id' is empty; give the zone the site drains")
+        values["zone_id"].append(zone)
+    for name in ("temperature_c", "ca_mg_l", "mg_mg_l", "so4_mg_l"):
+        values[name].append(_number(path, row, name, get(name), True))
+    values["alk"].append(_number(path, row, alk[0], get(alk[0]), False))
+    values["ph"].append(_number(path, row, "ph", get("ph"), False))
+    runoff = _number(path, row, "runoff_mm_per_yr", get("runoff_mm_per_yr"), False)
+    q_l_s = _number(path, row, "discharge_l_s", get("discharge_l_s"), False)
+    q_m3_s = _number(path, row, "discharge_m3_s", get("discharge_m3_s"), False)
+    if np.isnan(q_l_s) and not np.isnan(q_m3_s):
+        q_l_s = q_m3_s * 1000.0
+    if np.isnan(runoff) and np.isnan(q_l_s):
+        raise InputError(f"{path}: row {row}: no runoff or discharge value; fill {' or '.join(flows)}")
+    values["runoff_mm_per_yr"].append(runoff)
+    values["discharge_l_s"].append(q_l_s)
+    values["row"].append(row)

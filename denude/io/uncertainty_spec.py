@@ -35,15 +35,56 @@ from denude.errors import JobFileError
 #: Sections of the job file parsed here (``io.jobfile`` lets them through).
 SECTIONS = ("uncertainty", "scenario")
 
+#: [uncertainty] sigma keys -> (upper limit, unit, template example, help).
 _SIGMAS = {
-    "runoff_sigma_ln": (2.0, "1 (natural-log units)"),
-    "pco2_sigma_log10": (2.0, "log10 atm"),
-    "temperature_sigma_c": (20.0, "degrees C"),
+    "runoff_sigma_ln": (2.0, "1 (natural-log units)", 0.2,
+                        "Runoff times exp(N(0, sigma)), natural-log units (median factor 1)."),
+    "pco2_sigma_log10": (2.0, "log10 atm", 0.15, "Soil PCO2 times 10**N(0, sigma), log10 atm."),
+    "temperature_sigma_c": (20.0, "degrees C", 1.0, "Temperature plus N(0, sigma), degrees C."),
 }
+_CELL_NOISE_HELP = "true: independent cell-level draws on top of the regional one."
+#: [uncertainty.soil_co2] keys -> UncertaintySpec field (errors of Brook et al. 1983, log10 atm).
 _SOIL = {"intercept_sigma_log10": "soil_co2_intercept_sigma_log10",
          "amplitude_sigma_log10": "soil_co2_amplitude_sigma_log10"}
-_ROCK_KEYS = ("purity", "density_g_cm3")
+_SOIL_HELP = {"intercept_sigma_log10": "Error of the intercept -3.47, log10 atm.",
+              "amplitude_sigma_log10": "Error of the amplitude 2.09, log10 atm."}
+#: [uncertainty.rocks.NAME] keys -> (low, high, unit, template example).
+_ROCK_RANGES = {"purity": (0.0, 1.0, "fraction 0-1", [0.85, 1.0]),
+                "density_g_cm3": (0.5, 5.0, "g/cm3", [2.5, 2.7])}
+_ROCK_KEYS = tuple(_ROCK_RANGES)
 _TABLES = ("soil_co2", "saturation_ratio", "rocks")
+#: The rock the template's [uncertainty.rocks.NAME] example names (one of the built-in table).
+_TEMPLATE_ROCK = "limestone"
+#: [scenario] template examples that differ from the neutral value (a factor on precipitation or
+#: AET would need those inputs, so the template keeps the factors neutral).
+_SCENARIO_EXAMPLES = {"temperature_delta_c": 2.0}
+
+
+def _scenario_limits(key: str) -> tuple[float, float, str]:
+    """(low, high, unit) of a [scenario] key."""
+    if key == "temperature_delta_c":
+        return -30.0, 30.0, "degrees C"
+    return 0.0, 10.0, "times the input (1 = unchanged)"
+
+
+def template_sections() -> list[tuple[str, str | None, list[tuple[str, object, str]]]]:
+    """The commented [scenario] and [uncertainty] blocks of the `denude init` template, from the
+    key lists this module parses with: (table header, comment or None, [(key, example, help)])."""
+    scenario = [(key, _SCENARIO_EXAMPLES.get(key, neutral), f"{what[0].upper()}{what[1:]} "
+                 f"({'a factor, 1 = unchanged' if unit == '1' else unit}).")
+                for key, (neutral, unit, what) in SCENARIO_KEYS.items()]
+    sigmas = [(key, example, help_text) for key, (_, _, example, help_text) in _SIGMAS.items()]
+    sigmas.append(("cell_noise", False, _CELL_NOISE_HELP))
+    return [
+        ("scenario", "Changes to the inputs of map, batch and uncertainty (remove the '# ' to use).", scenario),
+        ("uncertainty", "Input errors of `denude uncertainty` (zero sigmas leave an input unperturbed).", sigmas),
+        ("uncertainty.soil_co2", "When PCO2 comes from AET (Brook et al. 1983).",
+         [(key, 0.1, _SOIL_HELP[key]) for key in _SOIL]),
+        ("uncertainty.saturation_ratio", "Uniform ranges of real / equilibrium load, 0-1, per mineral; default 1.",
+         [(mineral, [0.5, 1.0], f"Range for {mineral}, fraction 0-1.") for mineral in MINERALS[1:]]),
+        (f"uncertainty.rocks.{_TEMPLATE_ROCK}", "Uniform ranges per rock name of the rock table.",
+         [(key, example, f"Range of {key}, {unit}.") for key, (_, _, unit, example) in _ROCK_RANGES.items()]),
+    ]
 
 
 def _unknown(where: str, key: str, valid) -> JobFileError:
@@ -79,7 +120,7 @@ def parse_uncertainty(table, path) -> UncertaintySpec:
     valid = list(_SIGMAS) + ["cell_noise"] + list(_TABLES)
     for key, value in table.items():
         if key in _SIGMAS:
-            limit, unit = _SIGMAS[key]
+            limit, unit = _SIGMAS[key][:2]
             values[key] = _number(where, key, value, 0.0, limit, unit)
         elif key == "cell_noise":
             if not isinstance(value, bool):
@@ -108,12 +149,9 @@ def parse_uncertainty(table, path) -> UncertaintySpec:
                 for k, v in props.items():
                     if k not in _ROCK_KEYS:
                         raise _unknown(inner, k, _ROCK_KEYS)
-                    if k == "purity":
-                        lo, hi = _range(inner, k, v, 0.0, 1.0, "fraction 0-1")
-                        if lo <= 0:
-                            raise JobFileError(f"{inner} purity = {v!r} must be above 0; give [low, high] in 0-1")
-                    else:
-                        lo, hi = _range(inner, k, v, 0.5, 5.0, "g/cm3")
+                    lo, hi = _range(inner, k, v, *_ROCK_RANGES[k][:3])
+                    if k == "purity" and lo <= 0:
+                        raise JobFileError(f"{inner} purity = {v!r} must be above 0; give [low, high] in 0-1")
                     rocks.append((str(name), k, lo, hi))
             values["rocks"] = tuple(rocks)
         else:
@@ -155,10 +193,7 @@ def parse_scenario(table, path) -> Scenario:
     for key, value in table.items():
         if key not in SCENARIO_KEYS:
             raise _unknown(where, key, SCENARIO_KEYS)
-        if key == "temperature_delta_c":
-            values[key] = _number(where, key, value, -30.0, 30.0, "degrees C")
-        else:
-            values[key] = _number(where, key, value, 0.0, 10.0, "times the input (1 = unchanged)")
+        values[key] = _number(where, key, value, *_scenario_limits(key))
     return Scenario(**values)
 
 
