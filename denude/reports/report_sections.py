@@ -281,8 +281,8 @@ def calibration_section(mapdir: Path) -> Section | None:
     if (folder / "denudation_expected_mm_per_kyr.tif").is_file():
         figures.append(F.value_map(folder / "denudation_expected_mm_per_kyr.tif", "Expected denudation rate",
                                    "expected denudation rate [mm/kyr]", "calibration_expected",
-                                   "The maximum rate scaled by each watershed's observed / maximum ratio; blank "
-                                   "where a zone got no ratio."))
+                                   "The maximum rate scaled by each watershed's observed / maximum ratio; white: "
+                                   "outside the watersheds, a zone without a ratio, or insoluble rock (0 mm/kyr)."))
     sidecar = read_json(folder / "calibration.summary.json")
     intro = ["The map gives the most rock the water could dissolve. Water sampled from springs and rivers shows how "
              "much it actually carries. Their ratio tells how far below the maximum the real rate is in each "
