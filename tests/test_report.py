@@ -34,6 +34,9 @@ from denude.core.hazard import dominant_and_highest
 from denude.io.styles import read_category_names, smallest_code_type
 
 runner = CliRunner()
+#: Figures of the sections the demo's other outputs add (uncertainty, scenario, calibration, sinkholes).
+SECTION_FIGURES = ("uncertainty_band", "scenario_difference", "calibration_bars", "calibration_expected",
+                   "sinkhole_density")
 SLD = "{http://www.opengis.net/sld}"
 
 
@@ -94,7 +97,8 @@ def test_demo_report_is_self_contained(demo):
     assert CAUTION in html and "not a site investigation" in html
     page = parse(html)
     names = {img["data-figure"] for img in page.images}
-    assert names == {"rate_map", "hazard_map", "zones_mean_rate", "zones_rock_volume", "units_top_share", "rock_histogram"}
+    assert names == {"rate_map", "hazard_map", "zones_mean_rate", "zones_rock_volume", "units_top_share", "rock_histogram",
+                     *SECTION_FIGURES}
     for img in page.images:
         assert img["src"].startswith("data:image/png;base64,")
         picture = Image.open(io.BytesIO(base64.b64decode(img["src"].split(",", 1)[1])))
@@ -142,17 +146,120 @@ def test_report_tables_equal_the_summary(demo):
     assert float(limestone[6][0]) == pytest.approx(np.median(values), rel=1e-12)
 
 
-def test_report_cli_without_summary_and_extra_sections(demo, tmp_path):
-    (tmp_path / "calibration.csv").write_text("site,observed_mm_per_kyr,mapped_mm_per_kyr\nK1,31.5,40.2\n")
+def test_report_cli_without_summary_and_other_outputs(demo, tmp_path):
+    # a calibration table beside the map that no sidecar ties to it is not this map's: left out
+    (tmp_path / "calibration.csv").write_text("site,observed_mm_per_kyr,mapped_mm_per_kyr\nKetterwold-spring-9,31.5,40.2\n")
     mapdir = tmp_path / "map"
-    shutil.copytree(demo, mapdir, ignore=shutil.ignore_patterns("*summary*", "report*"))
+    shutil.copytree(demo, mapdir, ignore=shutil.ignore_patterns("*summary*", "report*", "uncertainty", "calibration",
+                                                                "comparison_*", "scenario_*"))
     result = runner.invoke(app, ["report", str(mapdir), "--out", str(tmp_path / "r.html"), "--title", "Ketterwold test"])
     assert result.exit_code == 0, result.output
     html = (tmp_path / "r.html").read_text(encoding="utf-8")
-    assert "Ketterwold test" in html and "Calibration" in html and "K1" in html
+    assert "Ketterwold test" in html and "Ketterwold-spring-9" not in html and "data-section" not in html
     assert "zones_by_volume" not in html and "rocks" in parse(html).tables
+    assert {img["data-figure"] for img in parse(html).images} == {"rate_map", "hazard_map", "rock_histogram"}
+    # a calibration folder beside the map whose sidecar names the map is found
+    shutil.copytree(demo / "calibration", tmp_path / "calibration")
+    sidecar = tmp_path / "calibration" / "calibration.summary.json"
+    record = json.loads(sidecar.read_text())
+    sidecar.write_text(json.dumps({**record, "map_folder": str(mapdir)}))
+    result = runner.invoke(app, ["report", str(mapdir), "--out", str(tmp_path / "r2.html")])
+    assert result.exit_code == 0, result.output
+    page = parse((tmp_path / "r2.html").read_text(encoding="utf-8"))
+    assert "calibration_zones" in page.tables and "uncertainty_zones" not in page.tables
     bad = runner.invoke(app, ["report", str(mapdir), "--out", str(tmp_path / "r.txt")])
     assert bad.exit_code == 1 and "ending in .html" in bad.stderr
+
+
+def _csv_rows(path):
+    import csv
+
+    with open(path, newline="", encoding="utf-8") as handle:
+        return {row[next(iter(row))]: row for row in csv.DictReader(handle)}
+
+
+def _check_columns(table, rows, columns):
+    """Every numeric cell of ``table`` equals its CSV field; ``columns``: (cell index, CSV column)."""
+    assert len(table) - 1 == len(rows)
+    for line in table[1:]:
+        source = rows[line[0][1]]
+        for index, column in columns:
+            if source[column] == "":
+                assert line[index] == (None, "-")
+            else:
+                assert float(line[index][0]) == float(source[column]), (column, line[0][1])
+
+
+def test_sections_equal_their_source_files(demo):
+    html = (demo / "report.html").read_text(encoding="utf-8")
+    page = parse(html)
+    # uncertainty: p05/p50/p95 of mean rate and rock volume, and the largest variance share
+    bands = _csv_rows(demo / "uncertainty" / "zones_uncertainty.csv")
+    table = page.tables["uncertainty_zones"]
+    assert [t for _, t in table[0][:2]] == ["watershed_id", "name"]
+    _check_columns(table, bands, [(2 + i, f"{q}_{p}") for i, (q, p) in enumerate(
+        (q, p) for q in ("denudation_mean_mm_per_kyr", "rock_volume_m3_per_yr") for p in ("p05", "p50", "p95"))])
+    for line in table[1:]:
+        shares = {k: float(v) for k, v in bands[line[0][1]].items()
+                  if k.startswith("variance_share_") and k != "variance_share_sum"}
+        top = max(shares, key=shares.get)
+        assert line[8][1] == f"{top[len('variance_share_'):].replace('_', ' ')} ({100 * shares[top]:.0f} %)"
+    assert "runoff (sigma 0.2 in ln)" in html and "do not cover the model itself" in html
+    # scenario: the change per watershed and the scenario in words (+2 C, runoff x 0.9)
+    change = _csv_rows(demo / "comparison_warming" / "zones_change.csv")
+    _check_columns(page.tables["scenario_zones"], change, [
+        (2, "base_denudation_mean_mm_per_kyr"), (3, "scenario_denudation_mean_mm_per_kyr"),
+        (4, "change_denudation_mean_mm_per_kyr"), (5, "ratio_denudation_mean_mm_per_kyr"),
+        (6, "change_rock_volume_m3_per_yr"), (7, "change_co2_drawdown_t_per_yr")])
+    assert "What if: temperature +2 \u00b0C, runoff x 0.9" in html
+    # calibration: observed, maximum, ratio, expected and the rule of each zone
+    calibration = _csv_rows(demo / "calibration" / "calibration.csv")
+    table = page.tables["calibration_zones"]
+    _check_columns(table, calibration, [(1, "n_samples"), (2, "observed_denudation_mm_per_kyr"),
+                                        (3, "maximum_denudation_mm_per_kyr"), (4, "saturation_ratio"),
+                                        (5, "expected_denudation_mm_per_kyr")])
+    assert {line[0][1]: line[6][1] for line in table[1:]} == {k: r["ratio_rule"] for k, r in calibration.items()}
+    # sinkhole record: densities with 95 % intervals, AUC, the warning of the demo's falling density
+    record = json.loads((demo / "watershed_summary.summary.json").read_text())["sinkhole_evaluation"]
+    rows = page.tables["sinkhole_classes"][1:]
+    assert [line[0][1] for line in rows] == [c["name"] for c in record["classes"]]
+    for line, c in zip(rows, record["classes"]):
+        assert [float(v) for v, _ in line[1:]] == [c["count"], c["area_km2"], c["density_per_km2"],
+                                                   c["density_ci95_low"], c["density_ci95_high"]]
+    assert float(page.tables["sinkhole_auc"][1][0][0]) == record["auc"]
+    assert record["density_rises_with_class"] is False and 'data-warning="sinkholes"' in html
+    assert "covered_zones" not in page.tables and 'data-section="covered"' not in html    # no cover in the demo
+
+
+def test_covered_karst_section(demo, tmp_path):
+    import pandas
+
+    from denude.core.cover import classify_cover
+    from denude.reports.report_sections import covered_section
+
+    mapdir = tmp_path / "map"
+    shutil.copytree(demo, mapdir, ignore=shutil.ignore_patterns("report*", "uncertainty", "calibration",
+                                                                "comparison_*", "scenario_*"))
+    with rasterio.open(mapdir / "soluble_area_fraction.tif") as ds:
+        fraction, profile = ds.read(1), ds.profile
+    cover = np.zeros(fraction.shape)
+    cover[:, : fraction.shape[1] // 3] = 4.0               # 4 m of cover over the western third
+    codes = classify_cover(fraction, cover, 0.0)
+    profile.update(dtype="uint8", nodata=255)
+    with rasterio.open(mapdir / "covered_karst.tif", "w", **profile) as out:
+        out.write(codes.astype(np.uint8), 1)
+    zones = pandas.DataFrame({"watershed_id": ["WS01", "WS02"], "covered_soluble_area_km2": [1.25, 0.0],
+                              "exposed_soluble_area_km2": [3.75, 2.0], "covered_soluble_share": [0.2, 0.0]})
+    section = covered_section(mapdir, zones)
+    cells = section.tables[0].rows[0]
+    assert (cells[0].value, cells[1].value) == ((codes == 2).sum(), (codes == 1).sum())
+    assert cells[2].value == pytest.approx((codes == 2).sum() / ((codes == 2) | (codes == 1)).sum(), rel=1e-12)
+    assert [row[3].value for row in section.tables[1].rows] == [0.2, 0.0]
+    assert "not a site investigation" in section.caution and section.figures[0].name == "covered_karst"
+    assert covered_section(demo, zones) is None              # no covered_karst.tif: no section
+    result = runner.invoke(app, ["report", str(mapdir), "--out", str(tmp_path / "r.html")])
+    assert result.exit_code == 0, result.output
+    assert 'data-section="covered"' in (tmp_path / "r.html").read_text(encoding="utf-8")
 
 
 def test_pdf_says_clearly_without_chromium(demo, tmp_path, monkeypatch):
@@ -393,7 +500,7 @@ def test_report_renders_in_headless_chromium(demo, tmp_path):
         process.terminate()
         process.wait(timeout=30)
         proxy.close()
-    assert len(images) == 6
+    assert len(images) == 6 + len(SECTION_FIGURES)
     for name, complete, nat_w, nat_h, width, height in images:
         assert complete and (nat_w, nat_h) == (width, height), name
     errors = [e for e in events if e.get("method") == "Runtime.exceptionThrown"

@@ -165,14 +165,19 @@ def rate_map(path) -> Figure:
     bar = fig.colorbar(image, ax=ax, shrink=0.8)
     bar.set_label("maximum denudation rate [mm/kyr]" + (" (log scale)" if kind == "log" else ""))
     if kind == "log":
-        ticks = [v * 10 ** e for e in range(-2, 6) for v in (1, 2, 5) if low <= v * 10 ** e <= high]
-        bar.set_ticks(ticks, labels=[f"{t:g}" for t in ticks])
-        bar.ax.minorticks_off()
+        _log_ticks(bar, low, high)
     decorate(ax, extent, crs, "Maximum denudation rate")
     ax.text(1.0, -0.02, "grey: 0 mm/kyr (insoluble rock)", transform=ax.transAxes, fontsize=7, ha="right", va="top")
     return _png(fig, "rate_map", "Maximum denudation rate (mm/kyr)",
                 "Cell-mean maximum chemical denudation rate, 1 mm/kyr = 1 m3 of rock per km2 per year. "
                 + ("Log colour scale: the rates span more than a factor of ten." if kind == "log" else ""))
+
+
+def _log_ticks(bar, low: float, high: float) -> None:
+    """Ticks 1, 2, 5 x 10^k within [low, high] on a log colour bar, written as plain numbers."""
+    ticks = [v * 10 ** e for e in range(-2, 6) for v in (1, 2, 5) if low <= v * 10 ** e <= high]
+    bar.set_ticks(ticks, labels=[f"{t:g}" for t in ticks])
+    bar.ax.minorticks_off()
 
 
 def _single(colour):
@@ -273,3 +278,105 @@ def rock_histogram(rates_by_rock: dict, unit: str = "mm/kyr") -> Figure:
     ax.set_title("Rates per rock type", fontsize=12, loc="left", fontweight="bold")
     return _png(fig, "rock_histogram", "Rates per rock type",
                 "Distribution of the cell rates on each soluble rock type (insoluble rock, 0 mm/kyr, left out).")
+
+
+def band_map(p05_path, p95_path, title: str, label: str, name: str, caption: str) -> Figure:
+    """Width of an uncertainty band, p95 - p05 of the same quantity, on a sequential colour map."""
+    plt = _mpl()
+    low, extent, crs, _ = read_decimated(p05_path, categorical=False)
+    high, _, _, _ = read_decimated(p95_path, categorical=False)
+    width = np.ma.masked_invalid(np.ma.filled(high.astype(np.float64) - low.astype(np.float64), np.nan))
+    fig, ax = plt.subplots(figsize=MAP_SIZE_IN, layout="constrained")
+    top = float(np.percentile(width.compressed(), 98.0)) if width.count() else 1.0
+    image = ax.imshow(width, extent=extent, cmap="magma_r", vmin=0.0, vmax=max(top, 1e-9), interpolation="nearest")
+    fig.colorbar(image, ax=ax, shrink=0.8, extend="max").set_label(label)
+    decorate(ax, extent, crs, title)
+    return _png(fig, name, title, caption)
+
+
+def difference_map(path, title: str, label: str, name: str, caption: str) -> Figure:
+    """A signed difference on a diverging colour map centred at 0 (blue: less, red: more);
+    the limits are symmetric, at the 98th percentile of the absolute difference."""
+    plt = _mpl()
+    from matplotlib.colors import TwoSlopeNorm
+
+    data, extent, crs, _ = read_decimated(path, categorical=False)
+    values = np.abs(data.compressed().astype(np.float64))
+    limit = float(np.percentile(values, 98.0)) if values.size else 1.0
+    limit = limit if limit > 0 else 1.0
+    fig, ax = plt.subplots(figsize=MAP_SIZE_IN, layout="constrained")
+    image = ax.imshow(data, extent=extent, cmap="RdBu_r", norm=TwoSlopeNorm(0.0, -limit, limit), interpolation="nearest")
+    fig.colorbar(image, ax=ax, shrink=0.8, extend="both").set_label(label)
+    decorate(ax, extent, crs, title)
+    return _png(fig, name, title, caption)
+
+
+def value_map(path, title: str, label: str, name: str, caption: str) -> Figure:
+    """A rate raster [mm/kyr] like ``rate_map`` (viridis, log scale over a wide range), other title."""
+    plt = _mpl()
+    from matplotlib.colors import LogNorm, Normalize
+
+    data, extent, crs, _ = read_decimated(path, categorical=False)
+    kind, low, high = rate_scale(data.compressed())
+    norm = LogNorm(vmin=low, vmax=high) if kind == "log" else Normalize(vmin=low, vmax=max(high, 1e-9))
+    fig, ax = plt.subplots(figsize=MAP_SIZE_IN, layout="constrained")
+    shown = np.ma.masked_where(np.ma.getmaskarray(data) | (data <= 0), data)
+    image = ax.imshow(shown, extent=extent, cmap="viridis", norm=norm, interpolation="nearest")
+    bar = fig.colorbar(image, ax=ax, shrink=0.8)
+    bar.set_label(label + (" (log scale)" if kind == "log" else ""))
+    if kind == "log":
+        _log_ticks(bar, low, high)
+    decorate(ax, extent, crs, title)
+    return _png(fig, name, title, caption)
+
+
+def class_map(path, names, colours, title: str, legend_title: str, name: str, caption: str) -> Figure:
+    """A class raster (codes 0..n-1, others left blank) with one legend patch per class."""
+    plt = _mpl()
+    from matplotlib.colors import BoundaryNorm, ListedColormap
+    from matplotlib.patches import Patch
+
+    data, extent, crs, _ = read_decimated(path, categorical=True)
+    n = len(names)
+    rgb = [np.asarray(colours[k][:3]) / 255 for k in range(n)]
+    fig, ax = plt.subplots(figsize=MAP_SIZE_IN, layout="constrained")
+    ax.imshow(np.ma.masked_greater_equal(data, n), extent=extent, cmap=ListedColormap(rgb),
+              norm=BoundaryNorm(np.arange(-0.5, n + 0.5), n), interpolation="nearest")
+    ax.legend(handles=[Patch(facecolor=c, edgecolor="#666666", label=t) for c, t in zip(rgb, names)],
+              title=legend_title, fontsize=8, title_fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0),
+              frameon=False)
+    decorate(ax, extent, crs, title)
+    return _png(fig, name, title, caption)
+
+
+def paired_bars(labels, first, second, names: tuple[str, str], ylabel: str, title: str, name: str,
+                caption: str) -> Figure:
+    """Two bars per label (e.g. observed and maximum rate of each watershed); NaN bars left out."""
+    plt = _mpl()
+    x = np.arange(len(labels))
+    fig, ax = plt.subplots(figsize=(7.2, 3.8), layout="constrained")
+    ax.bar(x - 0.2, np.asarray(first, dtype=np.float64), 0.4, label=names[0], color="#2166ac")
+    ax.bar(x + 0.2, np.asarray(second, dtype=np.float64), 0.4, label=names[1], color="#bdbdbd", edgecolor="#636363")
+    ax.set_xticks(x, labels, rotation=45 if len(labels) > 6 else 0, ha="right" if len(labels) > 6 else "center",
+                  fontsize=8)
+    ax.set_ylabel(ylabel)
+    ax.legend(fontsize=8, frameon=False)
+    ax.set_title(title, fontsize=12, loc="left", fontweight="bold")
+    return _png(fig, name, title, caption)
+
+
+def density_bars(names, density, low, high, ylabel: str, title: str, name: str, caption: str) -> Figure:
+    """Density per class with its interval as error bars (log axis when every lower bound is > 0)."""
+    plt = _mpl()
+    density, low, high = (np.asarray(v, dtype=np.float64) for v in (density, low, high))
+    fig, ax = plt.subplots(figsize=(7.2, 3.8), layout="constrained")
+    x = np.arange(len(names))
+    ax.errorbar(x, density, yerr=[density - low, high - density], fmt="o", color="#b2182b", ecolor="#333333",
+                capsize=5, markersize=7)
+    if low.size and np.all(low > 0):
+        ax.set_yscale("log")
+    ax.set_xticks(x, list(names))
+    ax.set_xlabel("hazard class")
+    ax.set_ylabel(ylabel)
+    ax.set_title(title, fontsize=12, loc="left", fontweight="bold")
+    return _png(fig, name, title, caption)

@@ -6,7 +6,8 @@ offline; the same figures are written as PNG files into ``<stem>_figures/`` besi
 
 Sections, in the order a planner reads: headline with the caution; maps; tables; how it was
 made; and, when present, the sections of other outputs found in or beside the map folder
-(``EXTRA_SECTIONS``: uncertainty and calibration results; absent files add nothing).
+(``report_sections``: uncertainty bands, scenarios, calibration, the sinkhole record, covered
+karst; an absent output adds nothing).
 
 Numbers in the tables are the summary GeoPackage's own values: each numeric cell carries the
 full value in ``data-value`` and shows it rounded to ``SIGNIFICANT`` digits.
@@ -19,7 +20,7 @@ import datetime as _dt
 import math
 import shutil
 import subprocess
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -29,9 +30,8 @@ from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.errors import InputError, OutputError
 from denude.reports import figures as F
 from denude.reports.provenance import read_run_record
+from denude.reports.report_tables import SIGNIFICANT, Cell, Table, fmt, num  # noqa: F401 (re-exported)
 
-#: Significant digits shown in the tables.
-SIGNIFICANT = 3
 #: Rows shown in each ranked table.
 TOP_ROWS = 15
 #: Rasters up to this many cells are read whole for the per-rock statistics; larger ones
@@ -41,34 +41,7 @@ FULL_READ_CELLS = 4_000_000
 HAZARD_NOTE = ("Hazard classes are a convention of this tool for ranking ground, not a measure of collapse "
                "probability. Do not use them alone to permit or refuse building.")
 
-#: Other outputs the report shows when they exist in or beside the map folder:
-#: (section title, file or folder name). Engineers adding such outputs list them here; a
-#: CSV becomes a table, a folder lists its CSV files as tables.
-EXTRA_SECTIONS = (
-    ("Uncertainty", "zones_uncertainty.csv"),
-    ("Uncertainty", "uncertainty"),
-    ("Calibration", "calibration.csv"),
-    ("Calibration", "calibration"),
-)
-#: Rows of an extra CSV shown on the page.
-EXTRA_ROWS = 25
-
 CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
-
-
-@dataclass
-class Cell:
-    text: str
-    value: float | None = None       # the exact number behind a numeric cell
-
-
-@dataclass
-class Table:
-    key: str
-    title: str
-    note: str
-    header: list
-    rows: list = field(default_factory=list)
 
 
 @dataclass
@@ -78,29 +51,6 @@ class ReportResult:
     figures: list
     pdf: Path | None
     pdf_note: str | None
-
-
-def fmt(value, digits: int = SIGNIFICANT) -> str:
-    """A number rounded to ``digits`` significant digits, with thousands separators; '-' for none."""
-    if value is None or (isinstance(value, float) and not math.isfinite(value)):
-        return "-"
-    if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
-        return f"{int(value):,}"          # counts stay whole numbers
-    value = float(value)
-    if value == 0:
-        return "0"
-    magnitude = math.floor(math.log10(abs(value)))
-    decimals = max(0, digits - 1 - magnitude)
-    rounded = round(value, decimals)
-    return f"{rounded:,.{decimals}f}"
-
-
-def num(value, digits: int = SIGNIFICANT, percent: bool = False) -> Cell:
-    """A numeric table cell (``percent``: a 0-1 share shown in %)."""
-    if value is None or not np.isfinite(value):
-        return Cell("-", None)
-    v = float(value)
-    return Cell(f"{fmt(100 * v, digits)} %" if percent else fmt(v, digits), v)
 
 
 def _region(run: dict) -> str:
@@ -262,32 +212,6 @@ def rock_statistics(mapdir: Path, rocks) -> tuple[Table, dict, str]:
     return table, by_rock, note
 
 
-def extra_sections(mapdir: Path) -> list[dict]:
-    """Sections of other outputs (uncertainty, calibration) found in or beside the map folder."""
-    import csv
-
-    sections = []
-    seen = set()
-    for title, name in EXTRA_SECTIONS:
-        for folder in (mapdir, mapdir.parent):
-            path = folder / name
-            if not path.exists() or path.resolve() in seen:
-                continue
-            seen.add(path.resolve())
-            files = sorted(path.glob("*.csv")) if path.is_dir() else [path]
-            for item in files:
-                with open(item, newline="", encoding="utf-8") as handle:
-                    rows = list(csv.reader(handle))
-                if not rows:
-                    continue
-                body = [[Cell(v) for v in r] for r in rows[1:EXTRA_ROWS + 1]]
-                more = max(0, len(rows) - 1 - EXTRA_ROWS)
-                sections.append({"title": title, "file": str(item),
-                                 "table": Table(f"extra_{len(sections)}", item.name,
-                                                f"{more} more rows in the file." if more else "", rows[0], body)})
-    return sections
-
-
 def provenance(run: dict, mapdir: Path) -> dict:
     """How the map was made: inputs with checksums, grid, chemistry, rock table, settings."""
     import csv
@@ -312,43 +236,25 @@ def _figures_dir(out_html: Path) -> Path:
     return out_html.with_name(out_html.stem + "_figures")
 
 
-def build_report(mapdir, out_html, summary=None, title: str | None = None, pdf: bool = False) -> ReportResult:
-    """Write the report of a map folder (and its summary GeoPackage) to ``out_html``, the
-    figures as PNG files beside it, and with ``pdf`` a PDF of the page (headless Chromium)."""
-    import jinja2
-
-    from denude.io.rock_csv import read_rock_table
-    from denude.io.styles import TOP_SHARE_BREAKS, TOP_SHARE_COLOURS, hex_colour
-
-    mapdir = Path(mapdir)
-    out_html = Path(out_html)
+def _check_map_folder(mapdir: Path, out_html: Path) -> None:
     if out_html.suffix.lower() not in (".html", ".htm"):
         raise InputError(f"{out_html}: the report is an HTML file; give a name ending in .html")
     for name in ("denudation_mm_per_kyr.tif", "hazard_class.tif", "lithology_code.tif", "rocks.csv"):
         if not (mapdir / name).is_file():
             raise InputError(f"{mapdir}: missing {name}; give the output folder of 'denude map' (with all layers)")
-    run = read_run_record(mapdir)
-    summary = Path(summary) if summary is not None else None
-    breaks, names, colours = _hazard_scheme(mapdir)
-    rocks = read_rock_table(mapdir / "rocks.csv")
 
-    import rasterio
 
-    with rasterio.open(mapdir / "denudation_mm_per_kyr.tif") as ds:
-        crs, b = ds.crs, ds.bounds
-    extent = (b.left, b.right, b.bottom, b.top)
-    zones, units, points = _summary_layers(summary, crs)
+def summary_figures(zones, units, names, breaks, colours, extent, crs) -> tuple[list, list]:
+    """(figures, tables) of the watersheds and planning units of a summary (none without one)."""
+    from denude.io.styles import TOP_SHARE_BREAKS, TOP_SHARE_COLOURS, hex_colour
 
-    figs = [F.rate_map(mapdir / "denudation_mm_per_kyr.tif"),
-            F.hazard_map(mapdir / "hazard_class.tif", names, breaks, colours, points)]
-    hex_classes = [hex_colour(c) for c in colours]
-    labels = F.class_legend_labels(names, breaks)
-    tables = []
+    figs, tables = [], []
     if zones is not None:
         figs.append(F.choropleth(zones, "denudation_mean_mm_per_kyr", "Watersheds: mean denudation rate",
                                  "mean rate, classes as on the hazard map", extent, crs, "zones_mean_rate",
                                  "Area-weighted mean maximum denudation rate of each watershed, in the hazard classes' colours.",
-                                 breaks=breaks, colours=hex_classes, labels=labels))
+                                 breaks=breaks, colours=[hex_colour(c) for c in colours],
+                                 labels=F.class_legend_labels(names, breaks)))
         figs.append(F.choropleth(zones, "rock_volume_m3_per_yr", "Watersheds: rock volume removed",
                                  "rock volume removed [m3/yr]", extent, crs, "zones_rock_volume",
                                  "Rock dissolved away per year in each watershed (rate x area).", cmap="viridis"))
@@ -365,11 +271,15 @@ def build_report(mapdir, out_html, summary=None, title: str | None = None, pdf: 
                                  breaks=TOP_SHARE_BREAKS, colours=list(TOP_SHARE_COLOURS), labels=share_labels,
                                  context=zones, zoom=True))
         tables.append(unit_table(units, names))
-    rock_table, by_rock, _ = rock_statistics(mapdir, rocks)
-    tables.append(rock_table)
-    figs.append(F.rock_histogram(by_rock))
+    return figs, tables
 
-    folder = _figures_dir(out_html)
+
+def _figure_dict(fig) -> dict:
+    return {"name": fig.name, "title": fig.title, "caption": fig.caption, "width": fig.width, "height": fig.height,
+            "data": base64.b64encode(fig.png).decode("ascii")}
+
+
+def _write_figures(folder: Path, figs) -> None:
     try:
         folder.mkdir(parents=True, exist_ok=True)
         for fig in figs:
@@ -377,30 +287,58 @@ def build_report(mapdir, out_html, summary=None, title: str | None = None, pdf: 
     except OSError as exc:
         raise OutputError(f"{folder}: cannot write the figures ({exc.strerror or exc}); choose a writable folder") from None
 
+
+def build_report(mapdir, out_html, summary=None, title: str | None = None, pdf: bool = False) -> ReportResult:
+    """Write the report of a map folder (and its summary GeoPackage) to ``out_html``, the
+    figures as PNG files beside it, and with ``pdf`` a PDF of the page (headless Chromium)."""
+    import jinja2
+    import rasterio
+
+    from denude.io.rock_csv import read_rock_table
+    from denude.io.styles import hex_colour
+    from denude.reports.report_sections import output_sections
+
+    mapdir, out_html = Path(mapdir), Path(out_html)
+    _check_map_folder(mapdir, out_html)
+    run = read_run_record(mapdir)
+    summary = Path(summary) if summary is not None else None
+    breaks, names, colours = _hazard_scheme(mapdir)
+    with rasterio.open(mapdir / "denudation_mm_per_kyr.tif") as ds:
+        crs, b = ds.crs, ds.bounds
+    zones, units, points = _summary_layers(summary, crs)
+
+    figs = [F.rate_map(mapdir / "denudation_mm_per_kyr.tif"),
+            F.hazard_map(mapdir / "hazard_class.tif", names, breaks, colours, points)]
+    more_figs, tables = summary_figures(zones, units, names, breaks, colours, (b.left, b.right, b.bottom, b.top), crs)
+    figs += more_figs
+    rock_table, by_rock, _ = rock_statistics(mapdir, read_rock_table(mapdir / "rocks.csv"))
+    tables.append(rock_table)
+    histogram = F.rock_histogram(by_rock)
+    sections = output_sections(mapdir, summary, zones)
+    section_figs = [f for s in sections for f in s.figures]
+    folder = _figures_dir(out_html)
+    _write_figures(folder, [*figs, histogram, *section_figs])
+
     env = jinja2.Environment(loader=jinja2.PackageLoader("denude.reports", "templates"),
                              autoescape=jinja2.select_autoescape(["html", "j2"]))
     made = _dt.datetime.fromtimestamp((mapdir / "run.json").stat().st_mtime).date().isoformat()
-    region = title or _region(run)
+    labels = F.class_legend_labels(names, breaks)
     page = env.get_template("report.html.j2").render(
-        region=region, date=_dt.date.today().isoformat(), map_date=made, caution=CAUTION,
+        region=title or _region(run), date=_dt.date.today().isoformat(), map_date=made, caution=CAUTION,
         upper_bound_note=UPPER_BOUND_NOTE, hazard_note=HAZARD_NOTE, version=__version__,
-        maps=[{"name": f.name, "title": f.title, "caption": f.caption, "width": f.width, "height": f.height,
-               "data": base64.b64encode(f.png).decode("ascii")} for f in figs if f.name != "rock_histogram"],
-        histogram=next({"name": f.name, "title": f.title, "caption": f.caption, "width": f.width, "height": f.height,
-                        "data": base64.b64encode(f.png).decode("ascii")} for f in figs if f.name == "rock_histogram"),
+        maps=[_figure_dict(f) for f in figs], histogram=_figure_dict(histogram),
         tables=tables, made=provenance(run, mapdir), summary=str(summary) if summary else None,
-        classes=[{"label": l, "colour": c} for l, c in zip(labels, hex_classes)],
-        extras=extra_sections(mapdir), figures_dir=folder.name,
-        highest_rule=_highest_rule(summary),
+        classes=[{"label": l, "colour": hex_colour(c)} for l, c in zip(labels, colours)],
+        sections=[{"section": s, "figures": [_figure_dict(f) for f in s.figures]} for s in sections],
+        figures_dir=folder.name, highest_rule=_highest_rule(summary),
     )
     try:
         out_html.write_text(page, encoding="utf-8")
     except OSError as exc:
         raise OutputError(f"{out_html}: cannot write ({exc.strerror or exc}); choose a writable folder") from None
-    pdf_path, note = (None, None)
-    if pdf:
-        pdf_path, note = print_pdf(out_html)
-    return ReportResult(out_html, folder, [f.name for f in figs], pdf_path, note)
+    pdf_path, note = print_pdf(out_html) if pdf else (None, None)
+    names_written = [f.name for f in (*figs, histogram, *section_figs)]
+    return ReportResult(out_html, folder, names_written, pdf_path, note)
 
 
 def _highest_rule(summary: Path | None) -> str:
