@@ -22,7 +22,7 @@ from denude.execution.window import WindowResult, run_window
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 from denude.io.outdir import commit_dir, make_staging_dir, remove_path
-from denude.io.rasters import RasterWriter
+from denude.io.raster_outputs import RasterWriter
 from denude.io.layer_meta import write_map_styles
 from denude.io.rock_csv import write_rock_table
 from denude.registry import OUTPUT_LAYERS
