@@ -76,7 +76,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
                                          settings.block_size, settings.compress, report.layout)
         total, found = _compute_and_write(plan, windows, layers, readers, writers, progress)
         readers.close()
-        for name in layers:          # overviews / COG copies of all outputs run side by side
+        for name in layers:          # overviews / COG copies: one at a time (raster_outputs.FINISH_SLOTS)
             writers[name].finish()
         outputs = [writers[name].close().name for name in layers]
         write_rock_table(report.rocks, staging / "rocks.csv")
