@@ -93,7 +93,7 @@ def floor_run(paths: dict, out: Path) -> None:
     from denude.io.grid import Grid
     from denude.io.rasters import (RESAMPLING, GridReader, OutputSpec, choose_layout, cog_options,
                                    creation_options, inspect_raster, overview_factors, plan_warp)
-    from denude.registry import INPUT_ROLES, OUTPUT_LAYERS
+    from denude.registry import INPUT_ROLES, LAYERS, OUTPUT_LAYERS
 
     out.mkdir()
     with rasterio.Env(GDAL_CACHEMAX=128 * 2**20):    # the job's default block cache
@@ -103,7 +103,8 @@ def floor_run(paths: dict, out: Path) -> None:
         readers = {role: GridReader(plan_warp(inspect_raster(p, role), grid, INPUT_ROLES[role].categorical), grid)
                    for role, p in paths.items()}
         files = {}
-        for name, info in OUTPUT_LAYERS.items():
+        for name in LAYERS:        # the six default layers (no optional input given)
+            info = OUTPUT_LAYERS[name]
             spec = OutputSpec(info.file, info.dtype, info.nodata, info.overview_resampling)
             options = creation_options(spec, "deflate", BLOCK)
             path = out / info.file

@@ -173,7 +173,7 @@ def test_compression_threads_do_not_change_the_bytes(tmp_path, monkeypatch, layo
     order: one thread and all cores give the same file, byte for byte."""
     from rasterio.transform import from_origin
 
-    from denude.io import rasters
+    from denude.io import raster_outputs as rasters
     from denude.io.rasters import OutputSpec, RasterWriter
 
     grid = Grid(rasterio.crs.CRS.from_epsg(32632).to_wkt(), tuple(from_origin(500000.0, 5200000.0, 10.0, 10.0))[:6],

@@ -118,3 +118,56 @@ def _renamed(func, name: str):
 
 cell_loop_parallel = numba.njit(parallel=True, cache=True, nogil=True)(_cell_loop)
 cell_loop_serial = numba.njit(parallel=False, cache=True, nogil=True)(_renamed(_cell_loop, "_cell_loop_serial"))
+
+
+def _code_pass(codes, valid, fraction, fraction_const, code_min, code_row, row_mineral, insoluble,
+               soluble, present):
+    """One pass over a window's codes: mark the table rows present on valid cells (``present``),
+    and fill ``soluble`` (float32, when it has cells) with the soluble-area fraction: the
+    fraction [0-1] (``fraction`` per cell, or ``fraction_const`` when ``fraction`` is empty) on
+    cells of a table code, 0 on insoluble rock (finite fraction), NaN elsewhere. Returns the
+    number of valid cells whose code is not in the table."""
+    n = codes.shape[0]
+    n_codes = code_row.shape[0]
+    per_cell = fraction.shape[0] > 0
+    want = soluble.shape[0] > 0
+    nan = np.float32(np.nan)
+    n_unknown = 0
+    for k in range(n):
+        row = -1
+        if valid[k]:
+            offset = np.int64(codes[k]) - code_min
+            if 0 <= offset < n_codes:
+                row = code_row[offset]
+            if row < 0:
+                n_unknown += 1
+            else:
+                present[row] = True
+        if want:
+            if row < 0:
+                soluble[k] = nan
+            else:
+                fk = fraction[k] if per_cell else fraction_const
+                if row_mineral[row] == insoluble and math.isfinite(fk):
+                    soluble[k] = 0.0
+                else:
+                    soluble[k] = fk
+    return n_unknown
+
+
+def _classify_loop(rate, breaks, nodata, out):
+    """Class index per cell: the number of breaks <= rate (breaks ascending), ``nodata`` for NaN."""
+    n_breaks = breaks.shape[0]
+    for k in range(rate.shape[0]):
+        v = rate[k]
+        if math.isnan(v):
+            out[k] = nodata
+            continue
+        c = 0
+        while c < n_breaks and breaks[c] <= v:
+            c += 1
+        out[k] = c
+
+
+code_pass = numba.njit(cache=True, nogil=True)(_code_pass)
+classify_loop = numba.njit(cache=True, nogil=True)(_classify_loop)

@@ -20,7 +20,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from denude.core.constants import CO2_PER_MOL, MINERALS, MOLAR_MASS_CO2_G_PER_MOL, MOLAR_MASS_G_PER_MOL
+from denude.core.constants import (CO2_PER_MOL, MINERAL_INDEX, MINERALS, MOLAR_MASS_CO2_G_PER_MOL,
+                                   MOLAR_MASS_G_PER_MOL)
 from denude.core.dissolution import (
     check_chemistry,
     equilibrium_load_mol_per_l,
@@ -131,6 +132,13 @@ def compute_block(
                                     rocks, chemistry, soluble_fraction, lithology_valid, warn)
     if method != "direct":
         raise KernelInputError(f"unknown kernel method {method!r}; choose 'table' or 'direct'")
+    return _compute_block_direct(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, rocks, chemistry,
+                                 soluble_fraction, lithology_valid, warn)
+
+
+def _compute_block_direct(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, rocks: RockLookup,
+                          chemistry: str, soluble_fraction, lithology_valid, warn: bool) -> BlockResult:
+    """``compute_block(method="direct")``: numpy, the chemistry solved per cell (the reference)."""
     codes = np.asarray(lithology_codes)
     shape = codes.shape
     q = np.broadcast_to(np.asarray(runoff_mm_per_yr, dtype=np.float64), shape)
@@ -282,8 +290,11 @@ def warm_up(chemistry: str = "white") -> None:
     try:
         rocks = RockTable.builtin().lookup()
         one = np.ones(1)
-        compute_block(rocks.codes[:1].astype(np.int32), 500.0 * one, 0.01 * one, 10.0 * one, rocks, chemistry,
-                      lithology_valid=np.ones(1, bool), warn=False)
+        code = rocks.codes[:1].astype(np.int32)
+        result = compute_block(code, 500.0 * one, 0.01 * one, 10.0 * one, rocks, chemistry,
+                               lithology_valid=np.ones(1, bool), warn=False)
+        codes_and_soluble_fraction(code, np.ones(1, bool), rocks, None)       # the window's passes too
+        classify_rates(result.denudation_mm_per_kyr, (1.0,))
     except Exception:  # pragma: no cover - the same call fails again, with its message, in the run
         pass
 
@@ -305,3 +316,45 @@ def _dense_code_rows(rocks: RockLookup) -> tuple[int, np.ndarray]:
     rows = np.full(high - low + 1, -1, np.int64)
     rows[rocks.codes - low] = np.arange(len(rocks.codes))
     return low, rows
+
+
+def codes_and_soluble_fraction(lithology_codes, lithology_valid, rocks: RockLookup, soluble_fraction=None,
+                               with_fraction: bool = True):
+    """Table codes present on valid cells, the count of valid cells of codes not in the table,
+    and (``with_fraction``) the soluble-area fraction layer [0-1], float32: the fraction (1
+    when None) on cells of a table code, 0 on insoluble rock where the fraction is finite, NaN
+    elsewhere. One compiled pass (``fast_kernel.code_pass``) instead of several numpy ones;
+    tests hold it equal to the numpy expression."""
+    from denude.core import fast_kernel as fk
+
+    codes = np.asarray(lithology_codes)
+    shape = codes.shape
+    code_dtype = np.int32 if codes.dtype.itemsize < 8 or _fits_int32(codes) else np.int64
+    flat_codes = np.ascontiguousarray(codes, dtype=code_dtype).reshape(-1)
+    valid = np.ascontiguousarray(np.broadcast_to(np.asarray(lithology_valid, bool), shape)).reshape(-1)
+    if soluble_fraction is None or np.ndim(soluble_fraction) == 0:
+        per_cell = np.empty(0, np.float64)
+        const = 1.0 if soluble_fraction is None else float(soluble_fraction)
+    else:
+        per_cell, const = _flat_float(soluble_fraction, shape, np.float64), 0.0
+    code_min, code_row = _dense_code_rows(rocks)
+    soluble = np.empty(flat_codes.size if with_fraction else 0, np.float32)
+    present = np.zeros(len(rocks.codes), np.bool_)
+    n_unknown = fk.code_pass(flat_codes, valid, per_cell, const, code_min, code_row, rocks.mineral_index,
+                             MINERAL_INDEX["insoluble"], soluble, present)
+    codes_present = tuple(int(c) for c in rocks.codes[present])
+    return codes_present, int(n_unknown), (soluble.reshape(shape) if with_fraction else None)
+
+
+def classify_rates(rate_mm_per_kyr, breaks_mm_per_kyr) -> np.ndarray:
+    """``denude.core.hazard.classify`` in one compiled pass (same classes, uint8, 255 = NaN)."""
+    from denude.core import fast_kernel as fk
+    from denude.core.hazard import HAZARD_NODATA, check_breaks
+
+    breaks = np.asarray(check_breaks(breaks_mm_per_kyr), dtype=np.float64)
+    rate = np.asarray(rate_mm_per_kyr)
+    if rate.dtype not in (np.float32, np.float64):
+        rate = rate.astype(np.float64)
+    out = np.empty(rate.shape, np.uint8)
+    fk.classify_loop(np.ascontiguousarray(rate).reshape(-1), breaks, np.uint8(HAZARD_NODATA), out.reshape(-1))
+    return out

@@ -22,7 +22,7 @@ from denude.execution.window import WindowResult, run_window
 from denude.io.grid import Grid
 from denude.io.jobfile import MapSettings
 from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
-from denude.io.rasters import RasterWriter
+from denude.io.raster_outputs import RasterWriter
 from denude.io.layer_meta import write_map_styles
 from denude.io.rock_csv import write_rock_table
 from denude.registry import OUTPUT_LAYERS
@@ -77,7 +77,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
                                          settings.block_size, settings.compress, report.layout)
         total, found = _compute_and_write(plan, windows, layers, readers, writers, progress)
         readers.close()
-        for name in layers:          # overviews / COG copies of all outputs run side by side
+        for name in layers:          # overviews / COG copies: one at a time (raster_outputs.FINISH_SLOTS)
             writers[name].finish()
         outputs = [writers[name].close().name for name in layers]
         write_rock_table(report.rocks, staging / "rocks.csv")

@@ -13,10 +13,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from rasterio.windows import Window
 
-from denude.core.constants import MINERAL_INDEX
 from denude.core.cover import classify_cover
-from denude.core.hazard import classify
-from denude.core.kernel import BlockCounts, compute_block
+from denude.core.kernel import BlockCounts, classify_rates, codes_and_soluble_fraction, compute_block
 from denude.execution.plan import InputReaders, JobPlan, prepare_job
 from denude.execution.window_inputs import read_window_inputs
 from denude.io.grid import Grid
@@ -63,11 +61,11 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
     result.counts.negative_runoff = inputs.negative_runoff
     result.counts.below_freezing = inputs.below_freezing
     result.counts.set_to_nodata = inputs.set_to_nodata
-    row = lookup.row_index(codes)
-    known = valid & (row >= 0)
-    present = np.bincount(row[known], minlength=len(lookup.codes)) > 0
-    codes_present = tuple(int(c) for c in lookup.codes[present])
-    unknown = tuple(int(c) for c in np.unique(codes[valid & (row < 0)])) if result.counts.unknown_code else ()
+    with_soluble = "soluble_fraction" in wanted or "covered_karst" in wanted
+    codes_present, _, soluble = codes_and_soluble_fraction(codes, valid, lookup, fraction, with_soluble)
+    unknown = ()
+    if result.counts.unknown_code:   # rare: name the codes (numpy)
+        unknown = tuple(int(c) for c in np.unique(codes[valid & (lookup.row_index(codes) < 0)]))
     arrays = {}
     if "denudation" in wanted:
         arrays["denudation"] = result.denudation_mm_per_kyr
@@ -76,23 +74,17 @@ def run_window(plan: JobPlan, window: Window, readers: InputReaders | None = Non
     if "co2_drawdown" in wanted:
         arrays["co2_drawdown"] = result.co2_drawdown_t_per_km2_yr
     if "hazard" in wanted:
-        arrays["hazard"] = classify(result.denudation_mm_per_kyr, settings.hazard_breaks_mm_per_kyr)
+        arrays["hazard"] = classify_rates(result.denudation_mm_per_kyr, settings.hazard_breaks_mm_per_kyr)
     if "lithology" in wanted:
         arrays["lithology"] = codes
-    if "soluble_fraction" in wanted or "covered_karst" in wanted:
-        mineral = np.where(known, lookup.mineral_index[np.maximum(row, 0)], 0)
-        f = np.broadcast_to(np.asarray(1.0 if fraction is None else fraction, dtype=np.float64), codes.shape)
-        out = np.where(known, f, np.nan)
-        out = np.where(known & (mineral == MINERAL_INDEX["insoluble"]) & np.isfinite(f), 0.0, out)
-        soluble = out.astype(np.float32)
-        if "soluble_fraction" in wanted:
-            arrays["soluble_fraction"] = soluble
-        if "covered_karst" in wanted:
-            # the class reads the soluble fraction as written to its layer (float32), so a
-            # summary of the folder sees the same cells as soluble
-            if cover is None:
-                raise ValueError("the covered_karst layer needs a cover input")
-            arrays["covered_karst"] = classify_cover(soluble, cover, settings.cover_min_thickness_m)
+    if "soluble_fraction" in wanted:
+        arrays["soluble_fraction"] = soluble
+    if "covered_karst" in wanted:
+        # the class reads the soluble fraction as written to its layer (float32), so a
+        # summary of the folder sees the same cells as soluble
+        if cover is None:
+            raise ValueError("the covered_karst layer needs a cover input")
+        arrays["covered_karst"] = classify_cover(soluble, cover, settings.cover_min_thickness_m)
     return WindowResult(window, arrays, result.counts, ranges, codes_present, unknown)
 
 
