@@ -18,7 +18,8 @@ import typer
 from denude.cli import options as o
 from denude.cli.common import CAUTION, handle_user_errors, one_line, progress_callback
 from denude.cli.map_cmd import settings_from_options
-from denude.execution import DEFAULT_TILE_SIZE, ZoneSpec, run_batch
+import denude.execution as execution   # run entry points resolved on use: `denude map` does not load the batch
+from denude.execution.tiling import DEFAULT_TILE_SIZE
 from denude.io.jobfile import read_batch_options
 from denude.reports.json_output import batch_record
 
@@ -105,7 +106,7 @@ def batch_command(
     table = read_batch_options(job) if job is not None else {}
     log = (lambda line: None) if quiet or as_json else (lambda line: typer.echo(line, err=True))
     with progress_callback("tiles", quiet or dry_run, rate_unit="tiles") as progress:
-        summary = run_batch(
+        summary = execution.run_batch(
             settings, progress=progress, tile_size=_pick(tile_size, table, "tile_size", DEFAULT_TILE_SIZE),
             workers=_pick(workers, table, "workers"), scheduler=_pick(scheduler, table, "scheduler"),
             retries=_pick(retries, table, "retries", 0), retry_failed=retry_failed, zones=_zone_spec(values, table),
@@ -129,7 +130,7 @@ _ZONE_FIELDS = {"zones": "path", "zones_layer": "layer", "zones_id_field": "id_f
 _ZONE_PATHS = ("zones", "units", "points")
 
 
-def _zone_spec(values: dict, table: dict) -> Optional[ZoneSpec]:
+def _zone_spec(values: dict, table: dict) -> "Optional[execution.ZoneSpec]":
     """The zone summary of a batch from the flags over the [batch] keys (None without zones)."""
     picked = {key: _pick(values.get(key), table, key) for key in _ZONE_FIELDS}
     if not picked["zones"]:
@@ -137,7 +138,7 @@ def _zone_spec(values: dict, table: dict) -> Optional[ZoneSpec]:
     for key in _ZONE_PATHS:
         if picked[key]:
             picked[key] = str(Path(picked[key]).resolve())
-    return ZoneSpec(**{_ZONE_FIELDS[key]: value for key, value in picked.items()})
+    return execution.ZoneSpec(**{_ZONE_FIELDS[key]: value for key, value in picked.items()})
 
 
 def _print_summary(summary, dry_run: bool) -> None:

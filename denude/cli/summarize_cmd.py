@@ -9,7 +9,7 @@ import typer
 
 from denude.cli import options as o
 from denude.cli.common import CAUTION, handle_user_errors, progress_callback
-from denude.execution import summarize_outputs
+import denude.execution as execution   # resolved on use: other commands do not load the summaries
 from denude.reports.json_output import summarize_record
 
 
@@ -35,7 +35,7 @@ def summarize(
 ):
     """Per-zone denudation summaries (mm/kyr, km2, m3/yr, t/yr), planning units and sinkholes."""
     with progress_callback("summarising rows", quiet) as progress:
-        meta = summarize_outputs(
+        meta = execution.summarize_outputs(
             outdir, zones, layer=layer, id_field=id_field, units_path=units, units_layer=units_layer,
             units_id_field=units_id_field, points_path=points, points_layer=points_layer,
             out_path=out, overwrite=overwrite, progress=progress, workers=workers,
