@@ -146,6 +146,11 @@ class Region:
         q = (150.0 + 1_020.0 * s ** 1.15) * windward * (1.0 + 0.04 * _waves(self.wet, x, y))
         return np.clip(q, 150.0, 1_200.0)
 
+    def aet_mm_per_yr(self, z):
+        """Actual evapotranspiration, mm/yr: about 520 mm/yr on the lowest ground, falling
+        0.12 mm/yr per m with the cooler, shorter growing season above (invented)."""
+        return np.clip(520.0 - 0.12 * z, 300.0, 520.0)
+
     def soil_pco2_ppmv(self, x, y, z):
         s = np.clip((z - 200.0) / 1_500.0, 0.0, 1.0)
         # valley soils about 10^4.4 ppmv; bare high ground near 10^3.1 ppmv
@@ -294,6 +299,11 @@ def make_rasters(region: Region, out: Path) -> dict:
     q[tarn] = FLOAT_NODATA
 
     zq = _quantize(z, 0.1)
+    # the water balance behind the runoff: precipitation = runoff + AET (so P - AET = runoff)
+    aet = _quantize(region.aet_mm_per_yr(z), 0.1)
+    precip = _quantize(q + aet, 0.1)
+    aet[tarn] = FLOAT_NODATA
+    precip[tarn] = FLOAT_NODATA
 
     _write_raster(out / "lithology.tif", code, CRS_MAIN, t_main, LITH_NODATA, "category",
                   "lithology code", {"classes": LITH_CLASSES}, colormap=LITH_COLOURS)
@@ -301,6 +311,10 @@ def make_rasters(region: Region, out: Path) -> dict:
                   "elevation above sea level")
     _write_raster(out / "runoff_mm_per_yr.tif", q, CRS_MAIN, t_main, FLOAT_NODATA, "mm/yr",
                   "mean annual runoff")
+    _write_raster(out / "precipitation_mm_per_yr.tif", precip, CRS_MAIN, t_main, FLOAT_NODATA, "mm/yr",
+                  "mean annual precipitation (runoff + AET)")
+    _write_raster(out / "aet_mm_per_yr.tif", aet, CRS_MAIN, t_main, FLOAT_NODATA, "mm/yr",
+                  "mean annual actual evapotranspiration")
     _write_raster(out / "soluble_fraction.tif", frac, CRS_MAIN, t_main, FLOAT_NODATA, "1",
                   "soluble-rock area fraction of the cell")
     info["main"] = dict(code=code, tarn_cells=int(tarn.sum()), nodata_cells=int(nodata_mask.sum()),
@@ -507,6 +521,7 @@ Lithology shares of the grid: {share}.
 | `lithology.tif` | EPSG:32633 | 30 m | {N_COLS} x {N_ROWS} | uint8 | 255 | category | rock code (see `rocks.csv`); colour table; tag `classes` |
 | `elevation_m.tif` | EPSG:32633 | 30 m | {N_COLS} x {N_ROWS} | float32 | -9999 | m | elevation above sea level |
 | `runoff_mm_per_yr.tif` | EPSG:32633 | 30 m | {N_COLS} x {N_ROWS} | float32 | -9999 | mm/yr | mean annual runoff, 150-1200, rising with elevation |
+| `precipitation_mm_per_yr.tif`, `aet_mm_per_yr.tif` | EPSG:32633 | 30 m | {N_COLS} x {N_ROWS} | float32 | -9999 | mm/yr | the water balance behind the runoff: AET 300-520 falling with elevation, precipitation = runoff + AET (the demo's warming scenario scales precipitation) |
 | `soluble_fraction.tif` | EPSG:32633 | 30 m | {N_COLS} x {N_ROWS} | float32 | -9999 | 1 | soluble-rock area fraction, 0 on insoluble cover, 0.3-1 elsewhere (lower near valleys, under thin cover) |
 | `temperature_c.tif` | EPSG:32633 | 250 m | {tcols} x {trows} | float32 | -9999 | degC | mean annual air temperature, 4-14, 15.3 - 6.5 per km of elevation |
 | `soil_pco2_ppmv.tif` | EPSG:4326 | 0.001 deg | {pcols} x {prows} | float32 | -9999 | ppmv | soil-air CO2, 1000-30000, lower on high bare ground |

@@ -2,6 +2,7 @@
 
 import csv
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -59,15 +60,22 @@ def test_demo_writes_scenario_comparison_and_bands(demo_single):
     with rasterio.open(out / "comparison_warming" / "denudation_ratio.tif") as ds:
         ratio = ds.read(1)
     lith = rasterio.open(out / "lithology_code.tif").read(1)
-    # 10 % less runoff (D linear in runoff, derived) and +2 C: carbonates (retrograde solubility,
-    # derived from Plummer & Busenberg 1982) fall by more than 10 %; gypsum (solubility rising
-    # with temperature below about 40 C, phreeqc.dat constants) by less
+    data = Path(__file__).resolve().parent.parent / "demo_rasters"
+    p = rasterio.open(data / "precipitation_mm_per_yr.tif").read(1).astype(np.float64)
+    aet = rasterio.open(data / "aet_mm_per_yr.tif").read(1).astype(np.float64)
+    # 10 % less precipitation at the same AET: runoff falls by the factor (0.9 P - AET) / (P - AET)
+    # (water balance, derived), and D is linear in runoff (derived). +2 C: carbonates (retrograde
+    # solubility, derived from Plummer & Busenberg 1982) fall by more than that factor; gypsum
+    # (solubility rising with temperature below about 40 C, phreeqc.dat constants) by less
+    runoff_factor = (0.9 * p - aet) / (p - aet)
     carbonate = np.isin(lith, (1, 2, 4)) & np.isfinite(ratio)
-    assert np.all(ratio[carbonate] < 0.9)
+    assert np.all(ratio[carbonate] < runoff_factor[carbonate])
+    assert np.all(runoff_factor[carbonate] < 0.9)
     gypsum = (lith == 3) & np.isfinite(ratio)
-    assert np.all((ratio[gypsum] > 0.9) & (ratio[gypsum] < 0.95))
+    assert np.all((ratio[gypsum] > runoff_factor[gypsum]) & (ratio[gypsum] < 1.05 * runoff_factor[gypsum]))
     run = json.loads((out / "scenario_warming" / "run.json").read_text())
     assert run["settings"]["scenario"]["temperature_delta_c"] == 2.0
+    assert run["settings"]["scenario"]["precipitation_factor"] == 0.9
 
 
 def test_demo_refuses_existing_folder(demo_single):

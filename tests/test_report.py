@@ -205,13 +205,13 @@ def test_sections_equal_their_source_files(demo):
         top = max(shares, key=shares.get)
         assert line[8][1] == f"{top[len('variance_share_'):].replace('_', ' ')} ({100 * shares[top]:.0f} %)"
     assert "runoff (sigma 0.2 in ln)" in html and "do not cover the model itself" in html
-    # scenario: the change per watershed and the scenario in words (+2 C, runoff x 0.9)
+    # scenario: the change per watershed and the scenario in words (+2 C, precipitation x 0.9)
     change = _csv_rows(demo / "comparison_warming" / "zones_change.csv")
     _check_columns(page.tables["scenario_zones"], change, [
         (2, "base_denudation_mean_mm_per_kyr"), (3, "scenario_denudation_mean_mm_per_kyr"),
         (4, "change_denudation_mean_mm_per_kyr"), (5, "ratio_denudation_mean_mm_per_kyr"),
         (6, "change_rock_volume_m3_per_yr"), (7, "change_co2_drawdown_t_per_yr")])
-    assert "What if: temperature +2 \u00b0C, runoff x 0.9" in html
+    assert "What if: temperature +2 \u00b0C, precipitation x 0.9" in html
     # calibration: observed, maximum, ratio, expected and the rule of each zone
     calibration = _csv_rows(demo / "calibration" / "calibration.csv")
     table = page.tables["calibration_zones"]

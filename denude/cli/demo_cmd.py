@@ -93,9 +93,10 @@ def run_demo(out: Path, data: Path, chemistry: str = "white", overwrite: bool = 
     return lines
 
 
-#: The demo's warming scenario: +2 degrees C and 10 % less water. The demo region has a runoff
-#: raster (no precipitation and AET), so "precipitation x 0.9" is expressed as runoff x 0.9.
-DEMO_SCENARIO = {"temperature_delta_c": 2.0, "runoff_factor": 0.9}
+#: The demo's warming scenario: +2 degrees C and 10 % less precipitation. It is mapped from the
+#: demo's water balance (precipitation and AET rasters, P - AET = the runoff raster of the
+#: baseline), so runoff = 0.9 P - AET falls by more than 10 %.
+DEMO_SCENARIO = {"temperature_delta_c": 2.0, "precipitation_factor": 0.9}
 #: Draws of the demo's uncertainty bands (few, so the demo stays quick).
 DEMO_DRAWS = 32
 
@@ -109,12 +110,13 @@ def _demo_scenario_and_bands(settings, out: Path, data: Path, overwrite: bool) -
 
     zones = ZoneSpec(str((data / "watersheds.gpkg").resolve()), "watersheds", "watershed_id")
     warm_dir = out / "scenario_warming"
-    run_map(settings.replace(out=str(warm_dir), scenario=Scenario(**DEMO_SCENARIO)))
+    run_map(settings.replace(out=str(warm_dir), runoff=None, precipitation=str(data / "precipitation_mm_per_yr.tif"),
+                             aet=str(data / "aet_mm_per_yr.tif"), scenario=Scenario(**DEMO_SCENARIO)))
     compare_dir = out / "comparison_warming"
     run_compare(out, warm_dir, compare_dir, zones, overwrite=overwrite)
     bands_dir = out / "uncertainty"
     run_uncertainty(settings.replace(out=str(bands_dir)), read_uncertainty(data / "job.toml"), DEMO_DRAWS, 1, zones)
-    return [f"warming scenario (+2 C, runoff x 0.9): {warm_dir}",
+    return [f"warming scenario (+2 C, precipitation x 0.9): {warm_dir}",
             f"comparison with the baseline: {compare_dir} (difference and ratio rasters, zones_change.csv)",
             f"uncertainty bands ({DEMO_DRAWS} draws): {bands_dir} (p05/p50/p95 rasters, zones_uncertainty.csv)"]
 
