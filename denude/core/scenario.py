@@ -90,3 +90,15 @@ def scale_runoff(scenario: Scenario | None, runoff_mm_per_yr):
 def scale_pco2(scenario: Scenario | None, pco2_atm):
     """PCO2 [atm] times the scenario's ``pco2_factor``."""
     return pco2_atm if scenario is None else _scaled(pco2_atm, scenario.pco2_factor)
+
+
+def scenario_problem(scenario: Scenario | None, has_precipitation: bool, has_aet: bool) -> str | None:
+    """Why a scenario cannot apply to a job's inputs (a factor on an input the job lacks), or None."""
+    if scenario is None:
+        return None
+    if scenario.precipitation_factor != 1.0 and not has_precipitation:
+        return ("scenario precipitation_factor needs precipitation and aet inputs (runoff = P - AET); "
+                "with a runoff input use runoff_factor")
+    if scenario.aet_factor != 1.0 and not has_aet:
+        return "scenario aet_factor needs an aet input; give aet or remove aet_factor"
+    return None

@@ -24,7 +24,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
 
 from denude.core.cover import check_min_thickness
 from denude.core.hazard import DEFAULT_BREAKS_MM_PER_KYR, DEFAULT_CLASS_NAMES, check_breaks
-from denude.core.scenario import Scenario
+from denude.core.scenario import Scenario, scenario_problem
 from denude.core.units import require_unit
 from denude.errors import DenudeError, InputError, JobFileError
 # the table and the starter files moved to io/job_table.py; re-exported for the old import path
@@ -215,8 +215,6 @@ def check_settings(s: MapSettings) -> None:
         raise InputError(f"{where}block_size {s.block_size!r} must be a multiple of 16 from 16 to 8192 cells; e.g. 512")
     for name in ("layout", "compress", "lithology_resampling", "continuous_resampling"):
         check_choice(name, getattr(s, name), where + _CHOICE_WHAT.get(name, name))
-    from denude.io.uncertainty_spec import scenario_problem  # lazily: it pulls the numba kernels in
-
     problem = scenario_problem(s.scenario, s.precipitation is not None, s.aet is not None)
     if problem:
         raise InputError(f"{where}{problem}")

@@ -28,7 +28,7 @@ import math
 
 from denude.core.constants import MINERALS
 from denude.core.rocks import rock_problem
-from denude.core.scenario import SCENARIO_KEYS, Scenario
+from denude.core.scenario import SCENARIO_KEYS, Scenario, scenario_problem  # noqa: F401 (re-exported)
 from denude.core.uncertainty import UncertaintySpec
 from denude.errors import JobFileError
 
@@ -195,18 +195,6 @@ def parse_scenario(table, path) -> Scenario:
             raise _unknown(where, key, SCENARIO_KEYS)
         values[key] = _number(where, key, value, *_scenario_limits(key))
     return Scenario(**values)
-
-
-def scenario_problem(scenario: Scenario | None, has_precipitation: bool, has_aet: bool) -> str | None:
-    """Why a scenario cannot apply to a job's inputs (a factor on an input the job lacks), or None."""
-    if scenario is None:
-        return None
-    if scenario.precipitation_factor != 1.0 and not has_precipitation:
-        return ("scenario precipitation_factor needs precipitation and aet inputs (runoff = P - AET); "
-                "with a runoff input use runoff_factor")
-    if scenario.aet_factor != 1.0 and not has_aet:
-        return "scenario aet_factor needs an aet input; give aet or remove aet_factor"
-    return None
 
 
 def read_uncertainty(path) -> UncertaintySpec:
