@@ -416,6 +416,19 @@ def _refuse_all_nodata(role: str, path, ds, tolerant: bool) -> None:
         raise no_valid_cells_error(role, path)
 
 
+def _read_tolerantly(read, tolerant: bool):
+    """``read()``; an unreadable part (not a user error already worded) gives None when
+    ``tolerant`` (the windows or tiles over it report it), else the error passes on."""
+    try:
+        return read()
+    except DenudeError:
+        raise
+    except Exception:
+        if not tolerant:
+            raise
+        return None
+
+
 def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool, values: str = "sample") -> None:
     """Every lithology code in the rock table (`check`), and integer codes in a float raster
     (always: a non-integer code must be an error, never truncated into another rock type).
@@ -425,25 +438,15 @@ def _check_codes(report: JobReport, lithology, scan: bool, tolerant: bool, value
     lithology_is_float = not np.issubdtype(np.dtype(report.inputs["lithology"].info.dtype), np.integer)
     if not scan and not lithology_is_float:
         if values == "decimated":
-            try:
-                codes = decimated_codes(settings.lithology, dataset=lithology)
-            except DenudeError:
-                raise
-            except Exception:
-                if not tolerant:
-                    raise
+            codes = _read_tolerantly(lambda: decimated_codes(settings.lithology, dataset=lithology), tolerant)
+            if codes is None:
                 return
             missing = rocks.missing_codes(codes)
             if missing:
                 raise missing_codes_error(settings.lithology, missing, rocks)
         return
-    try:
-        codes = unique_codes(settings.lithology, dataset=lithology)
-    except DenudeError:
-        raise
-    except Exception:
-        if not tolerant:
-            raise
+    codes = _read_tolerantly(lambda: unique_codes(settings.lithology, dataset=lithology), tolerant)
+    if codes is None:
         return
     report.codes_found = codes
     report.codes_missing = rocks.missing_codes(codes)
