@@ -22,7 +22,7 @@ from denude.core.rates import (runoff_from_water_balance_mm_per_yr, take_below_f
 from denude.core.scenario import apply_scenario, scale_pco2, scale_runoff
 from denude.core.soil_co2 import pco2_atm_from_units, pco2_from_aet_atm
 from denude.core.units import convert
-from denude.execution.validation import value_band
+from denude.execution.plausibility import value_band
 from denude.io.jobfile import MapSettings, is_constant
 from denude.io.units import settings_unit
 from denude.registry import INT32_NODATA
