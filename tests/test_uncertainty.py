@@ -22,10 +22,13 @@ from denude.core.uncertainty import (
     cell_quantiles,
     draw_block,
     draw_table,
+    exact_value,
+    exact_zeros,
     key_normal,
     key_uniform,
     regional_normals,
     variance_shares,
+    zone_draw_sums,
 )
 from denude.errors import JobFileError
 from denude.execution import ZoneSpec, run_map, run_uncertainty
@@ -245,11 +248,83 @@ def test_workers_tiling_and_seed_give_identical_results(job, tmp_path):
     for name in band_files():
         np.testing.assert_array_equal(_read(tmp_path / "one" / name), _read(tmp_path / "tiled" / name))
         assert not np.array_equal(_read(tmp_path / "one" / name), _read(tmp_path / "other" / name), equal_nan=True)
-    # zone sums over other windows: the same to float64 rounding
-    a = np.genfromtxt(tmp_path / "one" / "zones_uncertainty.csv", delimiter=",", skip_header=1)[:, 1:-1]
-    b = np.genfromtxt(tmp_path / "tiled" / "zones_uncertainty.csv", delimiter=",", skip_header=1)[:, 1:-1]
-    np.testing.assert_allclose(a, b, rtol=1e-12)
+    # zone sums over other windows: fixed strips of coverage and fixed-point sums, so the same bytes
+    assert (tmp_path / "one" / "zones_uncertainty.csv").read_bytes() == \
+        (tmp_path / "tiled" / "zones_uncertainty.csv").read_bytes()
     assert one.counts["computed"] == two.counts["computed"] > 0
+
+
+def test_zone_table_is_the_same_bytes_for_any_window_size(job, tmp_path):
+    # windows of 16, 32 and 48 rows and columns add the cells to the zone sums in other groups
+    # and orders; fixed-point sums make the table byte for byte the same
+    _run(job, tmp_path / "a", workers=1, block=16)
+    _run(job, tmp_path / "b", workers=2, block=48)
+    _run(job, tmp_path / "c", workers=1, block=32)
+    table = (tmp_path / "a" / "zones_uncertainty.csv").read_bytes()
+    assert table == (tmp_path / "b" / "zones_uncertainty.csv").read_bytes()
+    assert table == (tmp_path / "c" / "zones_uncertainty.csv").read_bytes()
+
+
+@pytest.mark.parametrize("origin, res", [((512345.678, 4301234.567), 30.123457), ((-3.7 + 1 / 7, 41.3 + 1 / 3), 1 / 1200)])
+def test_coverage_of_a_cell_does_not_depend_on_the_window(origin, res):
+    # the zone sums rely on it: a cell's exactextract coverage fraction computed in any window
+    # of the grid equals the one computed over the whole grid, bit for bit (checked here
+    # because exactextract does not document it)
+    from shapely import MultiPoint, convex_hull, to_wkb
+
+    from denude.io.coverage import coverage_pairs
+
+    rng = np.random.default_rng(1)
+    x0, y0 = origin
+    n = 200
+    poly = convex_hull(MultiPoint([(x0 + rng.uniform(10, 190) * res, y0 - rng.uniform(10, 190) * res) for _ in range(12)]))
+    wkbs = np.array([to_wkb(poly)], dtype=object)
+    whole = coverage_pairs((x0, y0 - n * res, x0 + n * res, y0), n, n, wkbs, np.arange(1))
+    by_cell = dict(zip(whole.cell.tolist(), whole.coverage.tolist()))
+    partial = 0
+    for r0, c0, h, w in [(0, 0, 100, 100), (16, 32, 48, 80), (100, 100, 100, 100), (7, 13, 150, 170)]:
+        part = coverage_pairs((x0 + c0 * res, y0 - (r0 + h) * res, x0 + (c0 + w) * res, y0 - r0 * res), w, h, wkbs,
+                              np.arange(1))
+        cells = part.cell.astype(np.int64)
+        whole_cells = (cells // w + r0) * n + cells % w + c0
+        assert [by_cell[c] for c in whole_cells.tolist()] == part.coverage.tolist()
+        partial += int(np.count_nonzero(part.coverage < 1))
+    assert partial > 100        # the windows cross the polygon's edge
+
+
+def test_fixed_point_zone_sums_are_exact_and_order_free():
+    # reference: math.fsum, the correctly rounded sum of the float64 terms (Python standard
+    # library, Shewchuk's algorithm); the limbs truncate each term at 2**-62 absolute
+    rng = np.random.default_rng(7)
+    n, n_draws = 5000, 3
+    rate = (rng.lognormal(2.0, 1.5, (n, n_draws))).astype(np.float32)
+    co2 = (rng.lognormal(0.0, 1.0, (n, n_draws))).astype(np.float32)
+    rate[::97, :] = np.nan
+    coverage = rng.uniform(0.0, 1.0, n)
+    rock_row = np.where(rng.uniform(size=n) < 0.2, -1, 0).astype(np.int64)
+    density = np.full((n_draws, 1), 2.65)
+    area = np.array([0.0009])
+    cell = np.arange(n, dtype=np.int32)
+
+    def sums(order):
+        out = [exact_zeros(1, n_draws) for _ in range(3)] + [exact_zeros(1, 1)]
+        for chunk in np.array_split(order, 7):
+            zone_draw_sums(np.zeros(1, np.int64), np.array([0, chunk.size], np.int64), cell[chunk],
+                           coverage[chunk], area, n, rate, co2, rock_row, density, *out)
+        return out
+
+    forward = sums(np.arange(n))
+    shuffled = sums(rng.permutation(n))
+    for f, s in zip(forward, shuffled):
+        np.testing.assert_array_equal(f, s)
+    ok = ~np.isnan(rate[:, 0])
+    w = coverage * area[0]
+    for d in range(n_draws):
+        want = math.fsum((w[ok] * rate[ok, d].astype(np.float64)).tolist())
+        assert exact_value(forward[0])[0, d] == pytest.approx(want, rel=1e-15)
+        want_co2 = math.fsum((w[ok] * co2[ok, d].astype(np.float64)).tolist())
+        assert exact_value(forward[2])[0, d] == pytest.approx(want_co2, rel=1e-15)
+    assert exact_value(forward[3])[0, 0] == pytest.approx(math.fsum(w[ok].tolist()), rel=1e-15)
 
 
 def test_bands_bracket_the_deterministic_map_and_zone_table_columns(job, map_inputs, tmp_path):

@@ -317,14 +317,47 @@ def draw_block(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, solub
 
 
 # ------------------------------------------------------------------------------ zones
+#: Zone sums are kept as fixed-point integers so that they do not depend on the order in which
+#: cells are added (the window layout, the number of workers): each term v [any unit] is cut
+#: into three int64 limbs, floor(v), then two 31-bit fractions, i.e. v truncated to 2**-62
+#: absolute; limb sums are exact and associative (for fewer than 2**32 terms per sum and
+#: totals below 2**63), so any partition of the cells gives the same integers.
+EXACT_LIMBS = 3
+_LIMB_SCALE = 2.0 ** 31
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _add_exact(acc, i, j, v):
+    """acc[i, j, :] += the fixed-point limbs of v (finite float64)."""
+    a = math.floor(v)
+    r = (v - a) * _LIMB_SCALE
+    b = math.floor(r)
+    c = math.floor((r - b) * _LIMB_SCALE)
+    acc[i, j, 0] += np.int64(a)
+    acc[i, j, 1] += np.int64(b)
+    acc[i, j, 2] += np.int64(c)
+
+
+def exact_zeros(*shape) -> np.ndarray:
+    """An empty fixed-point accumulator for sums of the given shape (see ``EXACT_LIMBS``)."""
+    return np.zeros(shape + (EXACT_LIMBS,), np.int64)
+
+
+def exact_value(acc) -> np.ndarray:
+    """float64 values of fixed-point accumulators (last axis the limbs)."""
+    acc = np.asarray(acc)
+    return (acc[..., 0].astype(np.float64) + acc[..., 1].astype(np.float64) / _LIMB_SCALE
+            + acc[..., 2].astype(np.float64) / _LIMB_SCALE ** 2)
+
+
 @numba.njit(cache=True, nogil=True)
 def zone_draw_sums(run_zone, run_start, cell, coverage, row_area_km2, width, rate, co2, rock_row,
                    density, volume, mass, co2_sum, valid_area):
-    """Add one block's covered cells to per-(zone, draw) sums: volume [m3/yr] = sum of
-    w x rate [mm/kyr] (1 mm/kyr over 1 km2 = 1 m3/yr), mass [t/yr] = volume x density of the
-    draw [g/cm3 = t/m3], co2_sum [t/yr] = sum of w x CO2 [t km-2 yr-1], valid_area [km2] = sum
-    of w over computed cells; w = coverage x cell area [km2] (``row_area_km2`` per block row,
-    or one value for all)."""
+    """Add one block's covered cells to per-(zone, draw) fixed-point sums (``exact_zeros``):
+    volume [m3/yr] = sum of w x rate [mm/kyr] (1 mm/kyr over 1 km2 = 1 m3/yr), mass [t/yr] =
+    volume x density of the draw [g/cm3 = t/m3], co2_sum [t/yr] = sum of w x CO2
+    [t km-2 yr-1], valid_area [km2] = sum of w over computed cells (shape (zones, 1, limbs));
+    w = coverage x cell area [km2] (``row_area_km2`` per block row, or one value for all)."""
     n_draws = rate.shape[1]
     planar = row_area_km2.shape[0] == 1
     for r in range(run_zone.shape[0]):
@@ -334,14 +367,14 @@ def zone_draw_sums(run_zone, run_start, cell, coverage, row_area_km2, width, rat
             if math.isnan(rate[c, 0]):
                 continue
             w = coverage[k] * (row_area_km2[0] if planar else row_area_km2[c // width])
-            valid_area[z] += w
+            _add_exact(valid_area, z, 0, w)
             rr = rock_row[c]
             for d in range(n_draws):
                 v = w * rate[c, d]
-                volume[z, d] += v
+                _add_exact(volume, z, d, v)
                 if rr >= 0:
-                    mass[z, d] += v * density[d, rr]
-                co2_sum[z, d] += w * co2[c, d]
+                    _add_exact(mass, z, d, v * density[d, rr])
+                _add_exact(co2_sum, z, d, w * co2[c, d])
 
 
 def variance_shares(inputs, y):

@@ -10,8 +10,9 @@ for every draw) and writes per zone the p05/p50/p95 of the mean rate, rock volum
 CO2 drawdown per year, and the first-order variance share of each perturbed input.
 
 Random numbers are keyed on (seed, draw, global row, global column), results are written in a
-fixed window order and zone sums are added in that order, so 1 and N workers give identical
-files, and the rasters do not depend on the window size.
+fixed window order, a cell's coverage fraction does not depend on the window it is computed in
+(tested) and zone sums are kept in fixed point (``exact_zeros``), whose addition is exact and
+so free of order: 1 and N workers and any window size give identical files.
 """
 
 from __future__ import annotations
@@ -42,6 +43,8 @@ from denude.core.uncertainty import (
     block_quantiles,
     draw_block,
     draw_table,
+    exact_value,
+    exact_zeros,
     summary_quantiles,
     variance_shares,
     zone_draw_sums,
@@ -204,8 +207,8 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
     zplan = _zone_plan(zones, grid) if zones is not None else None
     areas_row, area_method = cell_areas_km2(grid)
     n_zones = len(zplan.wkbs) if zplan is not None else 0
-    sums = {k: np.zeros((n_zones, n_draws)) for k in ("volume", "mass", "co2")}
-    valid_area = np.zeros(n_zones)
+    sums = {k: exact_zeros(n_zones, n_draws) for k in ("volume", "mass", "co2")}
+    valid_area = exact_zeros(n_zones, 1)
     hasher, hashes = _start_hashing(report, settings)
     work = _DrawWorker(plan, settings, spec, seed, lookup, table, zplan, grid, areas_row)
 
@@ -358,8 +361,9 @@ class _DrawWorker:
         return window, bands, check, block.clipped_draws, partial
 
     def _zone_sums(self, window, block):
-        """(zone indices, {volume, mass, co2: (zones, draws)}, covered valid area [km2]) of the
-        zones overlapping the window, or None."""
+        """(zone indices, {volume, mass, co2: (zones, draws, limbs)}, covered valid area [km2]
+        (zones, 1, limbs)) of the zones overlapping the window, fixed-point (``exact_zeros``),
+        or None."""
         zplan, n_draws = self.zplan, self.table.density.shape[0]
         xmin, ybot, xmax, ytop = _window_extent(self.grid, window)
         b = zplan.bounds
@@ -370,8 +374,8 @@ class _DrawWorker:
                                zplan.wkbs[sel], np.arange(sel.size))
         areas_row = self.areas_row
         row_area = areas_row[:1] if self.planar else areas_row[int(window.row_off):int(window.row_off + window.height)]
-        part = {k: np.zeros((sel.size, n_draws)) for k in ("volume", "mass", "co2")}
-        area = np.zeros(sel.size)
+        part = {k: exact_zeros(sel.size, n_draws) for k in ("volume", "mass", "co2")}
+        area = exact_zeros(sel.size, 1)
         zone_draw_sums(pairs.run_zone, pairs.run_start, pairs.cell, pairs.coverage,
                        np.ascontiguousarray(row_area, np.float64), int(window.width), block.rate, block.co2,
                        block.rock_row, self.table.density, part["volume"], part["mass"], part["co2"], area)
@@ -423,7 +427,8 @@ def zone_columns(sums: dict, valid_area: np.ndarray, inputs: np.ndarray, input_n
 
 def _write_zone_table(staging, zplan, sums, valid_area, table, area_method, settings, spec, n_draws, seed, zones):
 
-    cols = zone_columns(sums, valid_area, table.inputs, table.input_names)
+    cols = zone_columns({k: exact_value(v) for k, v in sums.items()}, exact_value(valid_area)[:, 0],
+                        table.inputs, table.input_names)
     frame = zone_table(zplan.layer, cols, [], area_method)
     out_path = staging / ZONES_FILE
     csv_path = staging / "zones_uncertainty.csv"
