@@ -7,13 +7,14 @@ Measured in one run, side by side, each step in a fresh subprocess, floor and ma
 - floor: read the same inputs window by window (the same 512 x 512 windows, through the same
   warping when an input's grid differs from the target grid) and write the same six layers
   with the same creation options and overviews (COG up to 8192 x 8192 cells: an uncompressed
-  tiled intermediate, then GDAL's COG copy; larger: tiled GTiff plus internal overviews), GDAL
+  tiled intermediate with its overviews, then GDAL's COG copy taking them; larger: tiled GTiff
+  plus internal overviews), the way the map's writer does it, GDAL
   compressing on all cores (NUM_THREADS=ALL_CPUS), one layer after another, from the main
   thread, no computation and no numba. The bytes written are the map's own: an untimed map run
   before the timings writes the six layers, kept as .npy files and read back window by window
   (memory-mapped, from the page cache) by the floor, so GDAL compresses the same values (an
-  earlier floor wrote the input windows, whose values compress faster than the rates: that
-  gap, 0.7 s at 4096^2 here, was content, not work). The reference run also fills numba's
+  earlier floor wrote the input windows instead; compression time depends on the values). The
+  reference run also fills numba's
   cache, so no timed run compiles;
 - map: `denude map` with all outputs, through the CLI (`--workers 2`);
 - peak resident memory (ru_maxrss) of a full map run at two sizes.
@@ -144,15 +145,17 @@ def floor_run(paths: dict, out: Path, reference: Path) -> None:
                 ds.write(np.asarray(values[rows, cols]), 1, window=window)
         for reader in readers.values():
             reader.close()
+        factors = overview_factors(grid.height, grid.width, BLOCK)
         for spec, path, ds, _ in files.values():
+            # overviews on the intermediate (COG: uncompressed), as the map's writer does
+            if factors:
+                ds.build_overviews(factors, RESAMPLING[spec.overview_resampling])
+            ds.close()
             if layout == "cog":
-                ds.close()
-                rasterio.shutil.copy(path, out / spec.name, driver="COG", **cog_options(spec, "deflate", BLOCK))
+                options = cog_options(spec, "deflate", BLOCK)
+                options["OVERVIEWS"] = "FORCE_USE_EXISTING" if factors else "NONE"
+                rasterio.shutil.copy(path, out / spec.name, driver="COG", **options)
                 path.unlink()
-            else:
-                ds.build_overviews(overview_factors(grid.height, grid.width, BLOCK),
-                                   RESAMPLING[spec.overview_resampling])
-                ds.close()
 
 
 def timed(cmd: list) -> tuple[float, int, float]:

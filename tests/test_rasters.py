@@ -202,3 +202,80 @@ def test_compression_threads_do_not_change_the_bytes(tmp_path, monkeypatch, layo
         np.testing.assert_array_equal(ds.read(1), data)
         assert ds.overviews(1) == rasters.overview_factors(64, 80, 16) == [2, 4, 8]
         assert ds.compression.name == "deflate"
+
+
+def _write_layer(path, grid, spec, data, layout):
+    from denude.io.rasters import RasterWriter
+
+    writer = RasterWriter(path, grid, spec, 16, "deflate", layout)
+    for window in block_windows(grid.height, grid.width, 16):
+        r, c = int(window.row_off), int(window.col_off)
+        writer.write(data[r:r + int(window.height), c:c + int(window.width)], window)
+    return writer.close()
+
+
+def _overview_arrays(path, n_levels):
+    out = []
+    for level in range(n_levels):
+        with rasterio.open(path, overview_level=level) as ds:
+            out.append(ds.read(1))
+    return out
+
+
+@pytest.mark.parametrize("height, width", [(64, 80), (16, 16), (17, 16), (33, 100), (200, 31)])
+def test_cog_outputs_take_the_overviews_built_on_the_intermediate(tmp_path, height, width):
+    """The writer builds overviews on the uncompressed intermediate (GDAL's overview builder,
+    the same call as the tiled layout) and has the COG copy take them. References: where
+    every level halves the grid exactly, GDAL's COG driver building them itself
+    (OVERVIEWS=AUTO) from the same intermediate gives the same file byte for byte; for other
+    shapes the COG driver rounds overview sizes down, the overview builder up, so there the
+    reference is the tiled layout's overviews, level by level, pixel for pixel."""
+    import rasterio.shutil
+    from rasterio.transform import from_origin
+
+    from denude.execution.plan import output_spec
+    from denude.io import raster_outputs as rasters
+    from denude.io.jobfile import build_settings
+    from denude.registry import LAYERS
+
+    grid = Grid(rasterio.crs.CRS.from_epsg(32632).to_wkt(), tuple(from_origin(500000.0, 5200000.0, 10.0, 10.0))[:6],
+                width, height)
+    settings = build_settings({"lithology": "l.tif", "runoff": 500.0, "pco2": 0.01, "temperature": 10.0})
+    factors = overview_factors(height, width, 16)
+    exact = all(height % f == 0 and width % f == 0 for f in factors)
+    rng = np.random.default_rng(5)
+    for name in LAYERS:
+        spec = output_spec(name, settings)
+        if np.dtype(spec.dtype).kind == "f":
+            data = (rng.lognormal(3, 1, (height, width))).astype(spec.dtype)
+            data[rng.uniform(size=data.shape) < 0.1] = np.nan
+        else:
+            data = rng.integers(0, 5, (height, width)).astype(spec.dtype)
+        folder = tmp_path / name
+        folder.mkdir()
+        ours = _write_layer(folder / spec.name, grid, spec, data, "cog")
+        with rasterio.open(ours) as ds:
+            assert ds.overviews(1) == factors
+            assert ds.tags(ns="IMAGE_STRUCTURE")["LAYOUT"] == "COG"
+            np.testing.assert_array_equal(ds.read(1), data)
+            profile = {k: v for k, v in ds.profile.items() if k not in ("compress", "predictor", "interleave")}
+            tags, desc, units = ds.tags(), ds.descriptions[0], ds.units[0]
+            colormap = ds.colormap(1) if spec.colormap is not None else None
+        if exact:   # the same intermediate, the COG driver's own overviews
+            work = folder / "reference.partial.tif"
+            with rasterio.open(work, "w", **profile) as ds:
+                ds.update_tags(**tags)
+                if desc:
+                    ds.set_band_description(1, desc)
+                if units:
+                    ds.set_band_unit(1, units)
+                if colormap is not None:
+                    ds.write_colormap(1, colormap)
+                ds.write(data, 1)
+            reference = folder / "reference.tif"
+            rasterio.shutil.copy(work, reference, driver="COG", **rasters.cog_options(spec, "deflate", 16))
+            assert ours.read_bytes() == reference.read_bytes(), (name, height, width)
+        (folder / "tiled").mkdir()
+        tiled = _write_layer(folder / "tiled" / spec.name, grid, spec, data, "tiled")
+        for a, b in zip(_overview_arrays(ours, len(factors)), _overview_arrays(tiled, len(factors))):
+            np.testing.assert_array_equal(a, b)
