@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import warnings
+from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import ExitStack
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -124,6 +125,9 @@ def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: st
         check_outputs(settings, roles)
     with ExitStack() as stack:
         lithology = stack.enter_context(open_raster(settings.lithology, "lithology"))
+        pool = ThreadPoolExecutor(max_workers=2, thread_name_prefix="denude-sample")
+        stack.callback(pool.shutdown, wait=True, cancel_futures=True)
+        value_reads = _start_value_reads(pool, roles, values, scan)
         grid = resolve_grid(settings, lithology)
         report = JobReport(settings, grid, rocks, layout=choose_layout(settings.layout, grid))
         if settings.grid_crs is not None and settings.grid_bounds is None:
@@ -136,10 +140,27 @@ def validate_job(settings: MapSettings, for_output: bool, scan: bool, values: st
             ds = lithology if role == "lithology" else stack.enter_context(open_raster(path, role))
             if role != "lithology":
                 _choose_unit(report, role, ds, path)
-            report.inputs[role] = _check_raster(report, role, path, ds, values, scan, _tolerant(tolerant, role))
+            report.inputs[role] = _check_raster(report, role, path, ds, value_reads.get(role), scan,
+                                                _tolerant(tolerant, role))
         _check_units_together(report)
         _check_codes(report, lithology, scan, _tolerant(tolerant, "lithology"), values)
     return report
+
+
+def _start_value_reads(pool, roles: dict, values: str, scan: bool) -> dict[str, Future]:
+    """The value reads of the raster inputs, started on ``pool`` (own handles, GDAL reads
+    release the GIL) so they overlap each other and the checks: for a continuous input a
+    decimated read or the lattice sample (``values``), for the lithology the lattice look
+    for any valid cell (not with ``scan``, which reads every code). Errors surface where
+    the result is taken, in input order."""
+    reads = {}
+    for role, path in roles.items():
+        if INPUT_ROLES[role].categorical:
+            if role == "lithology" and not scan:
+                reads[role] = pool.submit(sample_value_range, path, role)
+        else:
+            reads[role] = pool.submit(value_range if values == "decimated" else sample_value_range, path, role)
+    return reads
 
 
 def _tolerant(tolerant, role: str) -> bool:
@@ -210,9 +231,10 @@ def _check_constants(report: JobReport) -> None:
         report.notes.append(f"runoff {settings.runoff:g} mm/yr is negative: taken as 0 mm/yr (--negative-runoff zero)")
 
 
-def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan: bool,
+def _check_raster(report: JobReport, role: str, path: str, ds, value_read: Future | None, scan: bool,
                   tolerant: bool) -> InputReport:
-    """One raster input, open as ``ds``: georeferencing, warp plan, coverage, value bands."""
+    """One raster input, open as ``ds``: georeferencing, warp plan, coverage, value bands
+    (``value_read``: its (min, max, valid cells), from ``_start_value_reads``)."""
     settings, grid = report.settings, report.grid
     categorical = INPUT_ROLES[role].categorical
     info = describe_dataset(ds, path, role)
@@ -230,11 +252,10 @@ def _check_raster(report: JobReport, role: str, path: str, ds, values: str, scan
             "it will be nodata"), stacklevel=4)
     if categorical:
         if role == "lithology" and not scan:
-            _refuse_all_nodata(role, path, ds, tolerant)      # `check` scans every code instead
+            _refuse_all_nodata(role, path, ds, tolerant, value_read)   # `check` scans every code instead
         return item
-    reader = value_range if values == "decimated" else sample_value_range
     try:
-        lo, hi, n = reader(path, role, dataset=ds)
+        lo, hi, n = value_read.result()
     except RasterReadError:
         if not tolerant:
             raise
@@ -286,11 +307,11 @@ def _has_valid_cell(ds, path, role: str, tolerant: bool) -> bool:
     return False
 
 
-def _refuse_all_nodata(role: str, path, ds, tolerant: bool) -> None:
-    """Refuse a categorical input without valid cells: a quick lattice look, then (only if it
-    found nothing) the block scan."""
+def _refuse_all_nodata(role: str, path, ds, tolerant: bool, lattice_read: Future) -> None:
+    """Refuse a categorical input without valid cells: a quick lattice look (``lattice_read``),
+    then (only if it found nothing) the block scan."""
     try:
-        n = sample_value_range(path, role, dataset=ds)[2]
+        n = lattice_read.result()[2]
     except RasterReadError:
         if tolerant:
             return
