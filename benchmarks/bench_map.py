@@ -152,8 +152,7 @@ def floor_run(paths: dict, out: Path, reference: Path) -> None:
                 ds.build_overviews(factors, RESAMPLING[spec.overview_resampling])
             ds.close()
             if layout == "cog":
-                options = cog_options(spec, "deflate", BLOCK)
-                options["OVERVIEWS"] = "FORCE_USE_EXISTING" if factors else "NONE"
+                options = cog_options(spec, "deflate", BLOCK, overviews="FORCE_USE_EXISTING" if factors else "NONE")
                 rasterio.shutil.copy(path, out / spec.name, driver="COG", **options)
                 path.unlink()
 
