@@ -112,6 +112,10 @@ def default_layers(given_roles) -> tuple[str, ...]:
     given = set(given_roles)
     return tuple(name for name, layer in OUTPUT_LAYERS.items() if layer.needs is None or layer.needs in given)
 
+
+#: Default side of a batch tile [cells] (`denude batch`, `denude uncertainty --tile-size`).
+DEFAULT_TILE_SIZE = 4096
+
 #: Layers a zone summary reads.
 ZONE_LAYERS = ("denudation", "co2_drawdown", "hazard", "lithology", "soluble_fraction")
 

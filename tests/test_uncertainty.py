@@ -30,7 +30,7 @@ from denude.core.uncertainty import (
     variance_shares,
     zone_draw_sums,
 )
-from denude.errors import JobFileError
+from denude.errors import DenudeError, JobFileError
 from denude.execution import ZoneSpec, run_map, run_uncertainty
 from denude.execution.uncertainty_run import band_files
 from denude.io.jobfile import build_settings
@@ -263,6 +263,75 @@ def test_zone_table_is_the_same_bytes_for_any_window_size(job, tmp_path):
     table = (tmp_path / "a" / "zones_uncertainty.csv").read_bytes()
     assert table == (tmp_path / "b" / "zones_uncertainty.csv").read_bytes()
     assert table == (tmp_path / "c" / "zones_uncertainty.csv").read_bytes()
+
+
+def _run_tiled(job, out, tile_size, workers, merge=True):
+    path, zones = job
+    settings = build_settings({"out": str(out), "block_size": 16}, job_file=path)
+    return run_uncertainty(settings, read_uncertainty(path), 24, 3, zones, tile_size=tile_size, merge=merge,
+                           workers=workers)
+
+
+def _bits(array):
+    return array.view(np.uint32) if array.dtype == np.float32 else array
+
+
+def test_a_tiled_run_equals_the_whole_grid_bit_for_bit(job, tmp_path):
+    # the contract: a tiled run, a 1-worker and an N-worker run give identical bytes. Tiles of
+    # 16 cells in this process (12 tiles of the 40 x 56 grid) and of 32 cells on two local
+    # processes (4 tiles, two of them partial) against the whole grid on one thread.
+    _run(job, tmp_path / "whole", workers=1)
+    small = _run_tiled(job, tmp_path / "t16", 16, workers=0)
+    large = _run_tiled(job, tmp_path / "t32", 32, workers=2)
+    assert small.record["tiles"] == 12 and large.record["tiles"] == 4
+    assert small.record["engine"].startswith("in this process") and "2 workers" in large.record["engine"]
+    for name in band_files() + ["zones_uncertainty.csv"]:
+        whole = (tmp_path / "whole" / name).read_bytes()
+        assert whole == (tmp_path / "t16" / name).read_bytes(), name
+        assert whole == (tmp_path / "t32" / name).read_bytes(), name
+    for name in band_files():
+        vrt = tmp_path / "t32" / name.replace(".tif", ".vrt")
+        with rasterio.open(vrt) as ds:
+            assert ds.units == ((ds.tags()["units"]),) and ds.tags()["quantile"] in ("0.05", "0.5", "0.95")
+            mosaic = ds.read(1)
+        np.testing.assert_array_equal(_bits(mosaic), _bits(_read(tmp_path / "whole" / name)))
+    assert small.counts == large.counts == _run(job, tmp_path / "again", workers=2).counts
+    assert (tmp_path / "t32" / "tiles" / "r001_c001" / band_files()[0]).is_file()
+
+
+def test_a_failing_tile_fails_the_run_and_leaves_nothing(job, map_inputs, tmp_path):
+    # the rock table lacks code 5, which the lithology holds: each window meets it, the first
+    # tile reporting it fails the run, and no output folder is left behind
+    path, zones = job
+    rocks = RockTable.builtin()
+    table = tmp_path / "rocks.csv"
+    rows = [r for r in rocks.as_rows() if int(r["code"]) != 5]
+    with open(table, "w", newline="") as f:
+        writer = csv.DictWriter(f, fieldnames=list(rows[0]))
+        writer.writeheader()
+        writer.writerows(rows)
+    settings = build_settings({"out": str(tmp_path / "bad"), "block_size": 16, "rocks": str(table)}, job_file=path)
+    with pytest.raises(DenudeError) as err:
+        run_uncertainty(settings, read_uncertainty(path), 8, 3, zones, tile_size=16, workers=0)
+    assert "tile r0" in str(err.value) and "5" in str(err.value) and "\n" not in str(err.value)
+    assert not (tmp_path / "bad").exists()
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".bad")]
+
+
+def test_tiled_cli_keeps_only_vrts_with_no_merge_and_refuses_tile_options_alone(job, tmp_path):
+    path, zones = job
+    out = tmp_path / "cli"
+    result = runner.invoke(app, ["uncertainty", "--job", str(path), "--draws", "8", "--seed", "1", "--out", str(out),
+                                 "--tile-size", "32", "--workers", "0", "--no-merge", "-q"])
+    assert result.exit_code == 0, result.output
+    assert sorted(p.name for p in out.glob("*.vrt")) == sorted(n.replace(".tif", ".vrt") for n in band_files())
+    assert not list(out.glob("*.tif")) and len(list((out / "tiles").iterdir())) == 4
+    result = runner.invoke(app, ["uncertainty", "--job", str(path), "--draws", "8", "--out", str(tmp_path / "y"),
+                                 "--no-merge"])
+    assert result.exit_code == 1 and "--tile-size" in result.stderr and not (tmp_path / "y").exists()
+    result = runner.invoke(app, ["uncertainty", "--job", str(path), "--draws", "8", "--out", str(tmp_path / "z"),
+                                 "--tile-size", "20"])
+    assert result.exit_code == 1 and "multiple of 16" in result.stderr and not (tmp_path / "z").exists()
 
 
 @pytest.mark.parametrize("origin, res", [((512345.678, 4301234.567), 30.123457), ((-3.7 + 1 / 7, 41.3 + 1 / 3), 1 / 1200)])

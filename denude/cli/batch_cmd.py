@@ -18,6 +18,7 @@ import typer
 from denude.cli import options as o
 from denude.cli.common import CAUTION, handle_user_errors, one_line, progress_callback
 from denude.cli.map_cmd import settings_from_options
+from denude.cli.options import Scheduler, TileSize
 import denude.execution as execution   # run entry points resolved on use: `denude map` does not load the batch
 from denude.execution.tiling import DEFAULT_TILE_SIZE
 from denude.io.jobfile import read_batch_options
@@ -26,9 +27,6 @@ from denude.reports.json_output import batch_record
 BatchOut = Annotated[Optional[str], typer.Option(metavar="DIR", help="Output folder (an existing batch of the same job is resumed).")]
 BatchOverwrite = Annotated[bool, typer.Option("--overwrite", help="Replace an output folder that holds another job.")]
 BatchDryRun = Annotated[bool, typer.Option("--dry-run", help="Validate and show the tile plan, write nothing.")]
-TileSize = Annotated[Optional[int], typer.Option(
-    "--tile-size", metavar="CELLS", help=f"Batch tile side [cells], a multiple of 16 (default {DEFAULT_TILE_SIZE}).")]
-Scheduler = Annotated[Optional[str], typer.Option("--scheduler", metavar="ADDRESS", help="Run on an existing Dask cluster, e.g. tcp://HOST:8786.")]
 Retries = Annotated[Optional[int], typer.Option("--retries", metavar="N", help="Extra attempts for a failing tile (default 0).")]
 RetryFailed = Annotated[bool, typer.Option("--retry-failed", help="Run only the tiles that failed in an earlier run.")]
 Merge = Annotated[bool, typer.Option("--merge", help="Also write one merged cloud-optimised GeoTIFF per layer.")]

@@ -16,7 +16,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from denude.registry import ALL_LAYERS, CHOICES, INPUT_ROLES, LAYERS, PCO2_FROM_AET
+from denude.registry import ALL_LAYERS, CHOICES, DEFAULT_TILE_SIZE, INPUT_ROLES, LAYERS, PCO2_FROM_AET
 
 
 def choice_enum(name: str) -> type[Enum]:
@@ -102,6 +102,9 @@ GridBounds = Annotated[Optional[str], typer.Option(
 ChemistryText = Annotated[Optional[str], typer.Option(
     metavar=CHEMISTRY_METAVAR, help="white: White (1984) closed form (default); speciated: full carbonate speciation.")]
 BlockSize = Annotated[Optional[int], typer.Option(metavar="CELLS", help="Block and output tile size [cells] (default 512).")]
+TileSize = Annotated[Optional[int], typer.Option(
+    "--tile-size", metavar="CELLS", help=f"Batch tile side [cells], a multiple of 16 (default {DEFAULT_TILE_SIZE}).")]
+Scheduler = Annotated[Optional[str], typer.Option("--scheduler", metavar="ADDRESS", help="Run on an existing Dask cluster, e.g. tcp://HOST:8786.")]
 GdalCacheMb = Annotated[Optional[int], typer.Option(metavar="MB", help="GDAL block cache [MB] (default 128).")]
 Layers = Annotated[Optional[str], typer.Option(
     metavar="NAME,...", help=f"Comma-separated output layers: {', '.join(ALL_LAYERS)} (default: "

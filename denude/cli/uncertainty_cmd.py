@@ -13,7 +13,8 @@ from typing import Annotated, Optional
 import typer
 
 from denude.cli.common import CAUTION, handle_user_errors, progress_callback
-from denude.errors import JobFileError
+from denude.cli.options import Scheduler
+from denude.errors import InputError, JobFileError
 
 
 def uncertainty(
@@ -24,7 +25,14 @@ def uncertainty(
     zones: Annotated[Optional[Path], typer.Option("--zones", exists=True, dir_okay=False, help="Zone polygons (watersheds) for a per-zone table.")] = None,
     zones_layer: Annotated[Optional[str], typer.Option(help="Layer of the zone file.")] = None,
     zones_id_field: Annotated[Optional[str], typer.Option(help="Zone id field (default: feature ids as zone_id).")] = None,
-    workers: Annotated[Optional[int], typer.Option("--workers", min=1, max=256, help="Worker threads (default: the job file's, else 2).")] = None,
+    workers: Annotated[Optional[int], typer.Option("--workers", min=0, max=256, help=(
+        "Parallel workers: threads, or with --tile-size local processes (0: tiles in this process); "
+        "default the cores available."))] = None,
+    tile_size: Annotated[Optional[int], typer.Option("--tile-size", metavar="CELLS", help=(
+        "Split the target grid into tiles of this side [cells, a multiple of 16], each a task on local "
+        "processes or --scheduler; writes tiles/, one VRT per band and the merged GeoTIFFs."))] = None,
+    scheduler: Scheduler = None,
+    no_merge: Annotated[bool, typer.Option("--no-merge", help="With --tile-size: keep only the band VRTs over tiles/, no merged GeoTIFFs.")] = False,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing output folder.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar or summary.")] = False,
 ):
@@ -36,10 +44,16 @@ def uncertainty(
     spec = read_uncertainty(job)
     if spec == type(spec)():
         raise JobFileError(f"job file {job}: no input errors under [uncertainty]; add e.g. runoff_sigma_ln = 0.2")
-    settings = build_settings({"out": str(out), "workers": workers, "overwrite": overwrite or None}, job_file=job)
+    thread_workers = workers if tile_size is None else None      # with tiles: processes, given to the run
+    settings = build_settings({"out": str(out), "workers": thread_workers, "overwrite": overwrite or None}, job_file=job)
     zone_spec = ZoneSpec(str(zones.resolve()), zones_layer, zones_id_field) if zones is not None else None
-    with progress_callback("windows", quiet) as progress:
-        summary = run_uncertainty(settings, spec, draws, seed, zone_spec, progress=progress)
+    if (scheduler is not None or no_merge) and tile_size is None:
+        raise InputError("--scheduler and --no-merge need --tile-size; add e.g. --tile-size 4096")
+    if workers == 0 and tile_size is None:
+        raise InputError("--workers 0 (tiles in this process) needs --tile-size; give --workers 1 or more")
+    with progress_callback("tiles" if tile_size else "windows", quiet) as progress:
+        summary = run_uncertainty(settings, spec, draws, seed, zone_spec, progress=progress, tile_size=tile_size,
+                                  scheduler=scheduler, merge=not no_merge, workers=workers, note=None if quiet else typer.echo)
     if not quiet:
         typer.echo(f"{summary.out_dir}: {summary.draws} draws (seed {summary.seed}), "
                    f"{summary.counts['computed']} cells computed")

@@ -40,18 +40,25 @@ MANIFEST_NAME = "manifest.json"
 
 def layer_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, settings: MapSettings, layers) -> list[str]:
     """One VRT per layer over the finished tiles (relative paths, integer offsets)."""
+    items = [(OUTPUT_LAYERS[name].file, output_spec(name, settings)) for name in layers]
+    return mosaic_vrts(out, grid, tiles, done, items, settings.block_size)
+
+
+def mosaic_vrts(out: Path, grid: Grid, tiles: list[Tile], done: set, items, block_size: int) -> list[str]:
+    """One VRT ``OUTDIR/<file stem>.vrt`` per (tile file name, OutputSpec) of ``items`` over
+    ``OUTDIR/tiles/<tile id>/<file>`` of the finished tiles (relative paths, integer offsets),
+    with the spec's description, tags, colours, band unit and category names. Returns the
+    names written."""
     written = []
-    for name in layers:
-        info = OUTPUT_LAYERS[name]
-        spec = output_spec(name, settings)
+    for file, spec in items:
         sources = [
-            VrtSource(f"{TILES_DIR}/{t.id}/{info.file}", True, t.width, t.height, t.col_off, t.row_off,
-                      spec.dtype, (min(settings.block_size, t.width), min(settings.block_size, t.height)))
+            VrtSource(f"{TILES_DIR}/{t.id}/{file}", True, t.width, t.height, t.col_off, t.row_off,
+                      spec.dtype, (min(block_size, t.width), min(block_size, t.height)))
             for t in tiles if t.id in done
         ]
-        vrt_name = Path(info.file).with_suffix(".vrt").name
+        vrt_name = Path(file).with_suffix(".vrt").name
         write_vrt(out / vrt_name, grid.crs_wkt, grid.transform, grid.width, grid.height, spec.dtype,
-                  spec.nodata, sources, spec.description, spec.tags, spec.colormap)
+                  spec.nodata, sources, spec.description, spec.tags, spec.colormap, spec.units)
         written.append(vrt_name)
         if write_category_names(out / vrt_name, list(spec.categories)):   # GDAL reads <vrt>.aux.xml too
             written.append(vrt_name + ".aux.xml")
@@ -67,23 +74,29 @@ def write_rock_table_copy(out: Path, settings: MapSettings) -> str:
 
 def merge_layers(out: Path, grid: Grid, settings: MapSettings, layers, layout: str) -> list[str]:
     """One merged GeoTIFF per layer (COG layout up to its size limit), read from the VRTs."""
+    items = [(OUTPUT_LAYERS[name].file, output_spec(name, settings)) for name in layers]
+    return merge_mosaics(out, grid, items, settings.block_size, settings.compress, layout)
+
+
+def merge_mosaics(out: Path, grid: Grid, items, block_size: int, compress: str, layout: str) -> list[str]:
+    """``OUTDIR/<file>`` for each (file name, OutputSpec) of ``items``, read window by window
+    from ``OUTDIR/<file stem>.vrt`` (COG layout up to its size limit). All files are written
+    under a staging folder first and moved in only when every one is complete."""
     staging = make_staging_dir(out / "merged")
     names = []
     try:
-        for name in layers:
-            info = OUTPUT_LAYERS[name]
-            writer = RasterWriter(staging / info.file, grid, output_spec(name, settings), settings.block_size,
-                                  settings.compress, layout)
+        for file, spec in items:
+            writer = RasterWriter(staging / file, grid, spec, block_size, compress, layout)
             try:
-                with rasterio.open(out / Path(info.file).with_suffix(".vrt").name) as src:
-                    for window in block_windows(grid.height, grid.width, settings.block_size):
+                with rasterio.open(out / Path(file).with_suffix(".vrt").name) as src:
+                    for window in block_windows(grid.height, grid.width, block_size):
                         writer.write(src.read(1, window=window), window)
             except BaseException:
                 writer.abort()
                 raise
             writer.close()
-            fsync_file(staging / info.file)
-            names.append(info.file)
+            fsync_file(staging / file)
+            names.append(file)
         for file in names:
             (staging / file).replace(out / file)
         fsync_dir(out)

@@ -14,11 +14,11 @@ from rasterio.windows import Window
 
 from denude.errors import InputError
 from denude.io.grid import Grid
+from denude.registry import DEFAULT_TILE_SIZE  # noqa: F401  (re-exported)
 
 #: Smallest and largest batch tile side [cells]; tiles are multiples of 16 (GeoTIFF blocks).
 MIN_TILE_SIZE = 16
 MAX_TILE_SIZE = 65536
-DEFAULT_TILE_SIZE = 4096
 
 
 def check_tile_size(tile_size) -> int:

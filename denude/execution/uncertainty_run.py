@@ -17,8 +17,6 @@ so free of order: 1 and N workers and any window size give identical files.
 
 from __future__ import annotations
 
-import dataclasses
-import json
 import threading
 import time
 from collections import deque
@@ -29,45 +27,29 @@ from typing import Callable, Optional
 
 import numpy as np
 
-import denude
-from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.core.kernel import BlockCounts
-from denude.core.soil_co2 import soil_co2_gain
 from denude.core.uncertainty import (
-    NODATA,
-    OUT_OF_RANGE,
-    QUANTILE_LABELS,
-    QUANTILES,
-    UNKNOWN_CODE,
-    UncertaintySpec,
-    block_quantiles,
-    draw_block,
-    draw_table,
-    exact_value,
-    exact_zeros,
-    summary_quantiles,
+    QUANTILE_LABELS, QUANTILES, UncertaintySpec, draw_table, exact_value, exact_zeros, summary_quantiles,
     variance_shares,
-    zone_draw_sums,
 )
 from denude.errors import InputError
 from denude.execution.blocks import block_windows
-from denude.execution.plan import InputReaders, gdal_env, grid_source, output_spec, prepare_job
-from denude.execution.summaries import zone_extents
+from denude.execution.engines import check_scheduler, check_workers
+from denude.execution.plan import gdal_env, grid_source, prepare_job
+from denude.execution.tiling import check_tile_size, make_tiles
+from denude.execution.uncertainty_tiles import run_draw_tiles
+from denude.execution.uncertainty_windows import (  # noqa: F401  (band_files, band_spec: names of this module)
+    BAND_LAYERS, METHOD, DrawWorker, add_zone_partial, band_files, band_spec, zone_plan,
+)
 from denude.execution.validation import check_window, refuse_inputs_inside, validate_job, warn_about_counts
-from denude.execution.window import WindowResult
-from denude.execution.window_inputs import read_window_inputs
-from denude.io.coverage import coverage_pairs
 from denude.io.grid import cell_areas_km2
-from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
-from denude.reports.run_record import RUN_RECORD, run_record, write_run_record
-from denude.reports.summary_files import layer_provenance, sidecar_head, write_summary_files, zone_table
 from denude.io.jobfile import MapSettings
 from denude.io.mosaic import is_virtual_path
+from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
 from denude.io.rasters import RasterWriter, file_sha256
 from denude.io.uncertainty_spec import check_rock_names
-
-#: Quantity rasters of an uncertainty run: (map layer whose style they share, file stem, unit stem).
-BAND_LAYERS = (("denudation", "denudation", "mm_per_kyr"), ("co2_drawdown", "co2_drawdown", "t_per_km2_yr"))
+from denude.reports.run_record import RUN_RECORD, run_record, write_run_record
+from denude.reports.summary_files import layer_provenance, sidecar_head, write_summary_files, zone_table
 
 #: Per-zone quantities (column stems) and their units.
 ZONE_QUANTITIES = {
@@ -79,42 +61,6 @@ ZONE_QUANTITIES = {
 
 ZONES_FILE = "zones_uncertainty.gpkg"
 MAX_DRAWS = 100000
-
-
-def band_file(layer_stem: str, label: str, unit_stem: str) -> str:
-    """File name of one band raster, e.g. ``denudation_p05_mm_per_kyr.tif``."""
-    return f"{layer_stem}_{label}_{unit_stem}.tif"
-
-
-def band_files() -> list[str]:
-    """The six band rasters, in writing order."""
-    return [band_file(stem, label, unit) for _, stem, unit in BAND_LAYERS for label in QUANTILE_LABELS]
-
-
-METHOD = {
-    "draws": ("Monte Carlo: each draw applies one regional perturbation per input (errors of a regional "
-              "data set are correlated in space), plus independent cell-level draws of the runoff, PCO2 and "
-              "temperature errors when cell_noise is true"),
-    "random_streams": ("counter based: splitmix64 hash of (seed, draw, stream, global row, global column) to "
-                       "uniforms (top 53 bits), Box-Muller to normals; independent of tiling and workers"),
-    "chemistry": ("the load table of the deterministic kernel (bilinear in temperature and log10 PCO2) looked "
-                  "up with each draw's temperature and PCO2; draws leaving 0-90 degrees C or 1e-8-1 atm are "
-                  "clipped to the table edge and counted (counts.clipped_draws)"),
-    "cell_quantiles": "per cell over the draws, linear interpolation between order statistics (numpy 'linear')",
-    "zone_quantities": ("per draw: coverage fraction (exactextract) x cell area weighted sums over the zone; mean "
-                        "rate = rock volume / covered area of computed cells; rock mass = volume x the draw's "
-                        "bulk density of each cell's rock"),
-    "zone_quantiles": "over the draws of the zone quantity, numpy 'linear' quantiles",
-    "variance_share": ("first-order share of the variance of the zone's mean rate over the draws, from a "
-                       "least-squares fit of the mean rate on the regional draws of each input (normal variates; "
-                       "uniform values for ranges): Pratt's product measure, standardised regression coefficient "
-                       "x correlation of the input with the mean rate (= the squared standardised coefficient "
-                       "for uncorrelated inputs). The shares sum to the fit's R^2 (variance_share_sum); "
-                       "1 - sum is what a linear fit misses (curvature, interactions, cell-level noise)"),
-    "covers": ("only the listed input errors; not the structure of the model (White 1984 equilibrium, "
-               "open-system CO2), not kinetics, not errors of the lithology map; rates stay an upper bound "
-               "unless a saturation ratio is given"),
-}
 
 
 @dataclass
@@ -130,67 +76,32 @@ class UncertaintyRunSummary:
     record: dict
 
 
-@dataclass
-class _ZonePlan:
-    layer: object            # PolygonLayer
-    wkbs: np.ndarray
-    bounds: np.ndarray
-    nonempty: np.ndarray
-
-
-def band_spec(layer: str, label: str, settings: MapSettings, draws: int, seed: int):
-    """The OutputSpec of one band raster: the map layer's style (dtype, nodata, overviews, units,
-    caution) with the quantile in the name, description and tags."""
-
-    stem, unit_stem = next((s, u) for l, s, u in BAND_LAYERS if l == layer)
-    base = output_spec(layer, settings)
-    tags = dict(base.tags)
-    prob = QUANTILES[QUANTILE_LABELS.index(label)]
-    tags["quantity"] = f"{tags['quantity']}, {label} over {draws} Monte Carlo draws"
-    tags.update({"quantile": f"{prob:g}", "draws": str(draws), "seed": str(seed),
-                 "uncertainty_method": METHOD["cell_quantiles"], "uncertainty_covers": METHOD["covers"]})
-    return dataclasses.replace(base, name=band_file(stem, label, unit_stem), tags=tuple(tags.items()),
-                               description=f"{base.description} {label}")
-
-
-def _zone_plan(zones, grid) -> _ZonePlan:
-    from pyproj import CRS
-
-    from denude.errors import ZoneError
-    from denude.io.vectors import read_polygons
-
-    layer = read_polygons(zones.path, zones.layer, zones.id_field, CRS.from_wkt(grid.crs.to_wkt()), what="zone")
-    wkbs, bounds, inside = zone_extents(layer.geometry, grid)
-    if not inside.any():
-        raise ZoneError(f"{zones.path}: no zone overlaps the target grid {tuple(round(v, 6) for v in grid.bounds)}; "
-                        "check the zone file and the job cover the same area")
-    return _ZonePlan(layer, wkbs, bounds, inside)
-
-
-def _window_extent(grid, window):
-    t = grid.affine
-    xmin = t.c + window.col_off * t.a
-    xmax = xmin + window.width * t.a
-    ytop = t.f + window.row_off * t.e
-    ybot = ytop + window.height * t.e
-    return xmin, ybot, xmax, ytop
-
-
 def run_uncertainty(settings: MapSettings, spec: UncertaintySpec, draws: int, seed: int, zones=None,
-                    progress: Optional[Callable[[int, int], None]] = None) -> UncertaintyRunSummary:
+                    progress: Optional[Callable[[int, int], None]] = None, tile_size: Optional[int] = None,
+                    scheduler: Optional[str] = None, merge: bool = True, workers: Optional[int] = None,
+                    note: Optional[Callable[[str], None]] = None) -> UncertaintyRunSummary:
     """Write the band rasters (and with ``zones``, a ``ZoneSpec``, the zone table) into
-    ``settings.out``; see the module doc. ``progress(done, total)`` after each window."""
+    ``settings.out``; see the module doc. ``progress(done, total)`` after each window (each
+    tile with ``tile_size``: tiles of that side [cells] run as tasks on local processes, of
+    ``workers`` processes, default ``settings.workers``, 0 in this process, or on the Dask
+    cluster at ``scheduler``; see ``uncertainty_tiles``; ``merge=False`` keeps only the band
+    VRTs over the tiles)."""
 
     if not (isinstance(draws, int) and 2 <= draws <= MAX_DRAWS):
         raise InputError(f"--draws {draws!r} must be an integer from 2 to {MAX_DRAWS}; e.g. 64")
     if not (isinstance(seed, int) and 0 <= seed < 2**63):
         raise InputError(f"--seed {seed!r} must be an integer from 0 to 2**63 - 1")
+    if tile_size is not None:
+        check_tile_size(tile_size)
+        workers = check_workers(settings.workers if workers is None else workers)
+        check_scheduler(scheduler)
     started = time.perf_counter()
+    tiling = (tile_size, workers, scheduler, merge, note)
     with gdal_env(settings):
-        return _run(settings, spec, draws, seed, zones, progress, started)
+        return _run(settings, spec, draws, seed, zones, progress, started, tiling)
 
 
-def _run(settings, spec, n_draws, seed, zones, progress, started):
+def _run(settings, spec, n_draws, seed, zones, progress, started, tiling):
     report = validate_job(settings, for_output=True, scan=False)
     settings = report.settings          # with the input units validation resolved
     if zones is not None:
@@ -204,25 +115,34 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
     names = [plan.rocks.by_code(int(c)).name for c in lookup.codes]
     table = draw_table(spec, seed, n_draws, lookup.codes, lookup.mineral_index, lookup.density_g_cm3,
                        lookup.purity, names, pco2_from_aet=settings.pco2_from_aet)
-    zplan = _zone_plan(zones, grid) if zones is not None else None
+    zplan = zone_plan(zones, grid) if zones is not None else None
     areas_row, area_method = cell_areas_km2(grid)
     n_zones = len(zplan.wkbs) if zplan is not None else 0
     sums = {k: exact_zeros(n_zones, n_draws) for k in ("volume", "mass", "co2")}
     valid_area = exact_zeros(n_zones, 1)
     hasher, hashes = _start_hashing(report, settings)
-    work = _DrawWorker(plan, settings, spec, seed, lookup, table, zplan, grid, areas_row)
+    tile_size, workers, scheduler, merge, note = tiling
+    tiles = make_tiles(grid, tile_size) if tile_size is not None else None
+    work = DrawWorker(plan, settings, spec, seed, lookup, table, zplan, grid, areas_row) if tiles is None else None
+    engine = "threads in this process" if tiles is None else None
 
     remove_dead_staging(out.parent)
     staging = make_staging_dir(out)
     writers: dict = {}
     outputs: list = []
     try:
-        _open_band_writers(writers, staging, grid, settings, report.layout, n_draws, seed)
-        total, clipped, found = _compute_windows(work, windows, settings, plan, writers, sums, valid_area, progress)
-        work.close()
-        for writer in writers.values():
-            writer.finish()
-        outputs = [writer.close().name for writer in writers.values()]
+        if tiles is None:
+            _open_band_writers(writers, staging, grid, settings, report.layout, n_draws, seed)
+            total, clipped, found = _compute_windows(work, windows, settings, plan, writers, sums, valid_area,
+                                                     progress)
+            work.close()
+            for writer in writers.values():
+                writer.finish()
+            outputs = [writer.close().name for writer in writers.values()]
+        else:
+            total, clipped, found, outputs, engine = run_draw_tiles(
+                staging, tiles, settings, grid, report.layout, spec, seed, n_draws, table, zplan, sums, valid_area,
+                progress, workers, scheduler, merge, note)
         counts = {**total.as_dict(), "clipped_draws": int(clipped)}
         if zplan is not None:
             outputs += _write_zone_table(staging, zplan, sums, valid_area, table, area_method, settings, spec,
@@ -234,14 +154,16 @@ def _run(settings, spec, n_draws, seed, zones, progress, started):
             scenario=settings.scenario.as_dict() if settings.scenario is not None else None,
             uncertainty=spec.as_dict(), draws=n_draws, seed=seed, perturbed_inputs=list(table.input_names),
             method=METHOD, layout=report.layout, block_size=settings.block_size, blocks=len(windows),
-            lithology_codes_found=sorted(found),
+            lithology_codes_found=sorted(found), engine=engine,
+            tile_size=tile_size, tiles=len(tiles) if tiles is not None else None,
         )
         if zones is not None:
             record["zones"] = {"path": zones.path, "layer": zones.layer, "id_field": zones.id_field}
         write_run_record(staging / RUN_RECORD, record)
         commit_dir(staging, out, settings.overwrite)
     except BaseException as exc:
-        work.close()
+        if work is not None:
+            work.close()
         for writer in writers.values():
             writer.abort()
         raise_discarded([(staging, out)], exc)
@@ -307,95 +229,11 @@ def _compute_windows(work, windows, settings, plan, writers, sums, valid_area, p
                     writers[(layer, label)].write(bands[layer][j], window)
             total = total + check.counts
             clipped += n_clip
-            if partial is not None:
-                sel, part, area = partial
-                for key in sums:
-                    sums[key][sel] += part[key]
-                valid_area[sel] += area
+            add_zone_partial(sums, valid_area, partial)
             done += 1
             if progress is not None:
                 progress(done, len(windows))
     return total, clipped, found
-
-
-class _DrawWorker:
-    """The per-window step of an uncertainty run, called from pool threads: read the window's
-    inputs (one ``InputReaders`` per thread), draw, per-cell quantiles, the window's counts for
-    the rule book and, with zones, its per-(zone, draw) sums."""
-
-    def __init__(self, plan, settings, spec, seed, lookup, table, zplan, grid, areas_row):
-        self.plan, self.settings, self.spec, self.seed = plan, settings, spec, seed
-        self.lookup, self.table, self.zplan, self.grid = lookup, table, zplan, grid
-        self.areas_row = areas_row
-        self.planar = bool(np.all(areas_row == areas_row[0]))
-        self._local = threading.local()
-        self._lock = threading.Lock()
-        self._all_readers: list = []
-
-    def close(self) -> None:
-        for readers in self._all_readers:
-            readers.close()
-
-    def _readers(self):
-        readers = getattr(self._local, "readers", None)
-        if readers is None:
-            readers = self._local.readers = InputReaders(self.plan)
-            with self._lock:
-                self._all_readers.append(readers)
-        return readers
-
-    def __call__(self, window):
-        settings, lookup, table = self.settings, self.lookup, self.table
-        ranges: dict = {}
-        inputs = read_window_inputs(self._readers(), settings, window, ranges)
-        gain = soil_co2_gain(inputs.aet) if settings.pco2_from_aet else None
-        block = draw_block(inputs.codes, inputs.runoff, inputs.pco2, inputs.temperature, inputs.fraction, lookup,
-                           table, settings.chemistry, spec=self.spec, seed=self.seed, row0=int(window.row_off),
-                           col0=int(window.col_off), soil_gain=gain, lithology_valid=inputs.valid, parallel=False)
-        shape = inputs.codes.shape
-        q_rate, q_co2 = block_quantiles(block, table, parallel=False)
-        bands = {"denudation": q_rate.reshape((len(QUANTILES),) + shape),
-                 "co2_drawdown": q_co2.reshape((len(QUANTILES),) + shape)}
-        check = _window_result(window, block, inputs.codes, ranges, lookup)
-        partial = self._zone_sums(window, block) if self.zplan is not None else None
-        return window, bands, check, block.clipped_draws, partial
-
-    def _zone_sums(self, window, block):
-        """(zone indices, {volume, mass, co2: (zones, draws, limbs)}, covered valid area [km2]
-        (zones, 1, limbs)) of the zones overlapping the window, fixed-point (``exact_zeros``),
-        or None."""
-        zplan, n_draws = self.zplan, self.table.density.shape[0]
-        xmin, ybot, xmax, ytop = _window_extent(self.grid, window)
-        b = zplan.bounds
-        sel = np.flatnonzero(zplan.nonempty & (b[:, 0] < xmax) & (b[:, 2] > xmin) & (b[:, 1] < ytop) & (b[:, 3] > ybot))
-        if not sel.size:
-            return None
-        pairs = coverage_pairs((xmin, ybot, xmax, ytop), int(window.width), int(window.height),
-                               zplan.wkbs[sel], np.arange(sel.size))
-        areas_row = self.areas_row
-        row_area = areas_row[:1] if self.planar else areas_row[int(window.row_off):int(window.row_off + window.height)]
-        part = {k: exact_zeros(sel.size, n_draws) for k in ("volume", "mass", "co2")}
-        area = exact_zeros(sel.size, 1)
-        zone_draw_sums(pairs.run_zone, pairs.run_start, pairs.cell, pairs.coverage,
-                       np.ascontiguousarray(row_area, np.float64), int(window.width), block.rate, block.co2,
-                       block.rock_row, self.table.density, part["volume"], part["mass"], part["co2"], area)
-        return sel, part, area
-
-
-def _window_result(window, block, codes, ranges, lookup) -> WindowResult:
-    """The window's counts, rock codes present and unknown codes, for ``check_window``."""
-    status = block.status
-    counts = BlockCounts(cells=int(status.size), computed=int(np.count_nonzero(status == 0)),
-                         nodata=int(np.count_nonzero(status == NODATA)),
-                         unknown_code=int(np.count_nonzero(status == UNKNOWN_CODE)),
-                         out_of_range=int(np.count_nonzero(status == OUT_OF_RANGE)))
-    known = block.rock_row >= 0
-    present = np.bincount(block.rock_row[known], minlength=len(lookup.codes)) > 0
-    unknown = ()
-    if counts.unknown_code:
-        flat = codes.reshape(-1)
-        unknown = tuple(int(c) for c in np.unique(flat[status == UNKNOWN_CODE]))
-    return WindowResult(window, {}, counts, ranges, tuple(int(c) for c in lookup.codes[present]), unknown)
 
 
 def zone_columns(sums: dict, valid_area: np.ndarray, inputs: np.ndarray, input_names) -> dict:

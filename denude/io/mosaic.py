@@ -199,8 +199,9 @@ class VrtSource:
 
 
 def vrt_xml(crs_wkt: str, transform: tuple, width: int, height: int, dtype: str, nodata,
-            sources, description: str = "", tags=(), colormap=None) -> str:
-    """The XML text of a one-band VRT (deterministic for the same arguments)."""
+            sources, description: str = "", tags=(), colormap=None, units: str = "") -> str:
+    """The XML text of a one-band VRT (deterministic for the same arguments); ``units`` is the
+    band's unit type (as RasterWriter sets it on the GeoTIFFs)."""
     gdal_type = GDAL_TYPES.get(str(dtype))
     if gdal_type is None:
         raise InputError(f"data type {dtype} cannot go into a VRT mosaic; convert the tiles to an integer or float type")
@@ -219,6 +220,8 @@ def vrt_xml(crs_wkt: str, transform: tuple, width: int, height: int, dtype: str,
         lines.append(f"    <Description>{escape(description)}</Description>")
     if nodata is not None:
         lines.append(f"    <NoDataValue>{_fmt_number(nodata, dtype)}</NoDataValue>")
+    if units:
+        lines.append(f"    <UnitType>{escape(units)}</UnitType>")
     if colormap:
         lines.append("    <ColorInterp>Palette</ColorInterp>")
         lines.append("    <ColorTable>")
@@ -397,8 +400,8 @@ def vrt_source_files(path) -> list[str]:
 
 
 def write_vrt(dest, crs_wkt: str, transform: tuple, width: int, height: int, dtype: str, nodata,
-              sources, description: str = "", tags=(), colormap=None) -> Path:
+              sources, description: str = "", tags=(), colormap=None, units: str = "") -> Path:
     """Write a one-band VRT atomically (see ``vrt_xml``)."""
-    text = vrt_xml(crs_wkt, transform, width, height, dtype, nodata, sources, description, tags, colormap)
+    text = vrt_xml(crs_wkt, transform, width, height, dtype, nodata, sources, description, tags, colormap, units)
     write_text_atomic(dest, text)
     return Path(dest)
