@@ -149,6 +149,35 @@ def test_soil_co2_coefficient_errors_move_log10_pco2():
     assert plain.input_names == [] and np.all(plain.soil_a == 0)
 
 
+def test_soil_co2_rate_error_redraws_the_aet_term_of_each_draw():
+    # derived from Brook et al. (1983): log10 PCO2 = -3.47 + 2.09 (1 - exp(-k AET)), k = 0.00172
+    # per mm; a draw with the rate k * m has PCO2 = 10**(-3.47 + 2.09 (1 - exp(-k m AET))), so
+    # its rate is the deterministic rate at that PCO2 (same load table, so to float32 rounding)
+    import denude
+    from denude.core.soil_co2 import pco2_from_aet_atm, soil_co2_gain
+
+    spec = UncertaintySpec(soil_co2_rate_sigma_ln=0.3)
+    rocks = RockTable.builtin()
+    lk = rocks.lookup()
+    n, aet = 40, np.array([[150.0, 600.0, 1400.0]])
+    table = draw_table(spec, 5, n, lk.codes, lk.mineral_index, lk.density_g_cm3, lk.purity,
+                       [rocks.by_code(int(c)).name for c in lk.codes], pco2_from_aet=True)
+    assert table.input_names == ["soil_co2_rate"]
+    m = table.soil_rate
+    assert np.all(m > 0) and np.std(np.log(m)) == pytest.approx(0.3, rel=0.35)
+    code = int(next(c for c in lk.codes if rocks.by_code(int(c)).mineral == "calcite"))
+    codes = np.full(aet.shape, code, np.int64)
+    block = draw_block(codes, 500.0, pco2_from_aet_atm(aet), 10.0, 1.0, lk, table, "white", spec=spec, seed=5,
+                       soil_gain=soil_co2_gain(aet))
+    for d in (0, 7, 23):
+        pco2_d = 10.0 ** (-3.47 + 2.09 * (1.0 - np.exp(-0.00172 * m[d] * aet)))
+        expected = denude.rates(codes, np.full(aet.shape, 500.0), pco2_d, np.full(aet.shape, 10.0))
+        np.testing.assert_allclose(block.rate.reshape(3, n)[:, d], expected["denudation_mm_per_kyr"][0], rtol=2e-6)
+    # a larger rate means more soil CO2, hence a larger rate of dissolution, in every cell
+    order = np.argsort(m)
+    assert np.all(np.diff(block.rate.reshape(3, n)[:, order], axis=1) >= 0)
+
+
 def test_saturation_ratio_and_rock_ranges_scale_the_rate():
     spec = UncertaintySpec(saturation_ratio=(("dolomite", 0.3, 0.9),),
                            rocks=(("limestone", "purity", 0.85, 1.0), ("limestone", "density_g_cm3", 2.5, 2.7)))

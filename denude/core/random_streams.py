@@ -19,6 +19,7 @@ from denude.core import fast_kernel as _fk  # noqa: F401  (sets numba's threadin
 # Stream numbers (each uses lanes 2*s and 2*s + 1). Regional streams have row = col = 0 and
 # numbers below CELL_STREAM; rock streams are keyed by rock code, not by table order.
 STREAM_RUNOFF, STREAM_PCO2, STREAM_TEMPERATURE, STREAM_SOIL_A, STREAM_SOIL_B = 1, 2, 3, 4, 5
+STREAM_SOIL_RATE = 6
 STREAM_SATURATION = 16          # + mineral index
 STREAM_ROCK = 1 << 24           # + 2 * code (purity) or + 2 * code + 1 (density)
 CELL_STREAM = 1 << 40           # + 1 runoff, + 2 PCO2, + 3 temperature

@@ -36,7 +36,8 @@ from denude.core.draw_quantiles import (QUANTILE_LABELS, QUANTILES, block_quanti
                                         cell_quantiles, summary_quantiles)
 from denude.core.draw_quantiles import twin as _twin
 from denude.core.random_streams import (CELL_STREAM, STREAM_PCO2, STREAM_ROCK, STREAM_RUNOFF,  # noqa: F401
-                                        STREAM_SATURATION, STREAM_SOIL_A, STREAM_SOIL_B, STREAM_TEMPERATURE,
+                                        STREAM_SATURATION, STREAM_SOIL_A, STREAM_SOIL_B, STREAM_SOIL_RATE,
+                                        STREAM_TEMPERATURE,
                                         key_normal, key_uniform, regional_normals, regional_uniforms)
 
 # ------------------------------------------------------------------------------ the spec
@@ -50,6 +51,7 @@ class UncertaintySpec:
     temperature_sigma_c [degrees C]: temperature plus N(0, sigma)
     soil_co2_intercept_sigma_log10, soil_co2_amplitude_sigma_log10 [log10 atm]: normal errors of
         the intercept (-3.47) and amplitude (2.09) of Brook et al. (1983), when PCO2 comes from AET
+    soil_co2_rate_sigma_ln [1]: the model's rate 0.00172 per mm of AET times exp(N(0, sigma))
     saturation_ratio: ((mineral, low, high), ...) uniform real / equilibrium load, 0-1
     rocks: ((rock name, "purity" | "density_g_cm3", low, high), ...) uniform ranges
     cell_noise: also draw the runoff, PCO2 and temperature errors independently per cell
@@ -60,6 +62,7 @@ class UncertaintySpec:
     temperature_sigma_c: float = 0.0
     soil_co2_intercept_sigma_log10: float = 0.0
     soil_co2_amplitude_sigma_log10: float = 0.0
+    soil_co2_rate_sigma_ln: float = 0.0
     saturation_ratio: tuple = ()
     rocks: tuple = ()
     cell_noise: bool = False
@@ -71,6 +74,7 @@ class UncertaintySpec:
             "temperature_sigma_c": self.temperature_sigma_c,
             "soil_co2_intercept_sigma_log10": self.soil_co2_intercept_sigma_log10,
             "soil_co2_amplitude_sigma_log10": self.soil_co2_amplitude_sigma_log10,
+            "soil_co2_rate_sigma_ln": self.soil_co2_rate_sigma_ln,
             "cell_noise": self.cell_noise,
             "saturation_ratio": {m: [lo, hi] for m, lo, hi in self.saturation_ratio},
             "rocks": {name: {k: [lo, hi] for n, k, lo, hi in self.rocks if n == name}
@@ -82,7 +86,8 @@ class UncertaintySpec:
 class DrawTable:
     """Regional perturbations of every draw, and the per-draw rock factors.
 
-    q_factor [1], dlogp [log10 atm], dtemp [degrees C], soil_a, soil_b [log10 atm]: shape (N,)
+    q_factor [1], dlogp [log10 atm], dtemp [degrees C], soil_a, soil_b [log10 atm], soil_rate
+    [1, factor on the rate 0.00172 per mm]: shape (N,)
     rate_factor [mm/kyr per (mol/L * mm/yr)], co2_factor [t CO2 km-2 yr-1 per (mol/L * mm/yr)],
     density [g/cm3]: shape (N, rock rows), saturation ratio included in the first two
     inputs: (N, k) values of the perturbed inputs (normal variates or uniform values) and
@@ -94,6 +99,7 @@ class DrawTable:
     dtemp: np.ndarray
     soil_a: np.ndarray
     soil_b: np.ndarray
+    soil_rate: np.ndarray
     rate_factor: np.ndarray
     co2_factor: np.ndarray
     density: np.ndarray
@@ -127,9 +133,11 @@ def draw_table(spec: UncertaintySpec, seed: int, n_draws: int, codes, minerals, 
     dlogp = normal(STREAM_PCO2, spec.pco2_sigma_log10, "pco2")
     dtemp = normal(STREAM_TEMPERATURE, spec.temperature_sigma_c, "temperature")
     soil_a = soil_b = zeros
+    soil_rate = np.ones(n_draws)
     if pco2_from_aet:
         soil_a = normal(STREAM_SOIL_A, spec.soil_co2_intercept_sigma_log10, "soil_co2_intercept")
         soil_b = normal(STREAM_SOIL_B, spec.soil_co2_amplitude_sigma_log10, "soil_co2_amplitude")
+        soil_rate = np.exp(normal(STREAM_SOIL_RATE, spec.soil_co2_rate_sigma_ln, "soil_co2_rate"))
 
     density = np.tile(np.asarray(density_g_cm3, np.float64), (n_draws, 1))
     purity_d = np.tile(np.asarray(purity, np.float64), (n_draws, 1))
@@ -158,7 +166,7 @@ def draw_table(spec: UncertaintySpec, seed: int, n_draws: int, codes, minerals, 
     co2_factor = co2_per[None, :] * sat_rows
     x = np.column_stack(inputs) if inputs else np.zeros((n_draws, 0))
     return DrawTable(q_factor, dlogp, dtemp, np.asarray(soil_a, float), np.asarray(soil_b, float),
-                     np.ascontiguousarray(rate_factor), np.ascontiguousarray(co2_factor),
+                     np.asarray(soil_rate, float), np.ascontiguousarray(rate_factor), np.ascontiguousarray(co2_factor),
                      np.ascontiguousarray(density), x, input_names)
 
 
@@ -168,11 +176,14 @@ COMPUTED, NODATA, UNKNOWN_CODE, OUT_OF_RANGE = 0, 1, 2, 3
 
 
 def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
-               q_factor, dlogp, dtemp, soil_a, soil_b, rate_factor, co2_factor,
+               q_factor, dlogp, dtemp, soil_a, soil_b, soil_rate, soil_amplitude, rate_factor, co2_factor,
                noise_q, noise_p, noise_t, seed, row0, col0, width,
                tables, t0, dt, lp0, dlp, t_min, t_max, p_max, rate_out, co2_out, status, clipped):
     """Fill rate_out and co2_out (cells x draws, float32, NaN where the base cell is not
-    computed), status per cell and the number of clipped draws per cell.
+    computed), status per cell and the number of clipped draws per cell. ``g`` is the soil-CO2
+    gain 1 - exp(-k AET) of the base PCO2 ``p``; a draw's rate factor m gives the gain
+    1 - (1 - g)**m = 1 - exp(-m k AET), and the base amplitude ``soil_amplitude`` [log10 atm]
+    moves log10 PCO2 by soil_amplitude * (gain - g).
 
     Long on purpose: this is the compiled numba loop over cells (parallel build) and draws.
     Status checks, perturbation and the bilinear table look-up stay inline in one body so
@@ -227,7 +238,10 @@ def _draw_loop(codes, litho_ok, q, p, t, f, g, code_min, code_row, row_mineral,
         cf = co2_factor[row]
         for d in range(n_draws):
             td = tk + dtemp[d]
-            lpd = lpk + dlogp[d] + soil_a[d] + soil_b[d] * gk
+            gd = gk
+            if soil_rate[d] != 1.0:
+                gd = 1.0 - (1.0 - gk) ** soil_rate[d]
+            lpd = lpk + dlogp[d] + soil_a[d] + soil_b[d] * gd + soil_amplitude * (gd - gk)
             qd = qk * q_factor[d]
             if noisy:
                 if noise_t > 0.0:
@@ -277,10 +291,11 @@ def draw_block(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, solub
     """All draws of one block of aligned cells (2-D arrays of one shape, or scalars for the
     value inputs). ``row0``, ``col0``: the block's first global row and column (cell-level
     noise is keyed on them). ``soil_gain``: 1 - exp(-0.00172 AET) per cell when PCO2 comes from
-    AET (the amplitude error multiplies it), else None. ``rocks``: a ``RockLookup``."""
+    AET (the amplitude and rate errors act through it), else None. ``rocks``: a ``RockLookup``."""
     from denude.core.kernel import _dense_code_rows
     from denude.core.constants import PCO2_MAX_ATM, TEMPERATURE_MAX_C, TEMPERATURE_MIN_C
     from denude.core.lookup import stacked_tables
+    from denude.core.soil_co2 import BROOK_AMPLITUDE_LOG10_ATM
 
     codes = np.asarray(lithology_codes)
     shape = codes.shape
@@ -305,7 +320,8 @@ def draw_block(lithology_codes, runoff_mm_per_yr, pco2_atm, temperature_c, solub
     noise = spec.cell_noise
     loop = draw_loop_parallel if parallel else draw_loop_serial
     loop(flat_codes, ok, q, p, t, f, g, code_min, code_row, rocks.mineral_index,
-         draws.q_factor, draws.dlogp, draws.dtemp, draws.soil_a, draws.soil_b,
+         draws.q_factor, draws.dlogp, draws.dtemp, draws.soil_a, draws.soil_b, draws.soil_rate,
+         BROOK_AMPLITUDE_LOG10_ATM,
          np.ascontiguousarray(draws.rate_factor.T), np.ascontiguousarray(draws.co2_factor.T),
          spec.runoff_sigma_ln if noise else 0.0, spec.pco2_sigma_log10 if noise else 0.0,
          spec.temperature_sigma_c if noise else 0.0, int(seed), int(row0), int(col0), int(width),

@@ -8,6 +8,7 @@
     [uncertainty.soil_co2]           # when PCO2 comes from AET (Brook et al. 1983)
     intercept_sigma_log10 = 0.1      # error of the intercept -3.47, log10 atm
     amplitude_sigma_log10 = 0.1      # error of the amplitude 2.09, log10 atm
+    rate_sigma_ln = 0.1              # the rate 0.00172 per mm times exp(N(0, sigma))
     [uncertainty.saturation_ratio]   # uniform ranges of real / equilibrium load, 0-1; default 1
     dolomite = [0.3, 0.9]
     [uncertainty.rocks.limestone]    # uniform ranges per rock name of the rock table
@@ -45,9 +46,13 @@ _SIGMAS = {
 _CELL_NOISE_HELP = "true: independent cell-level draws on top of the regional one."
 #: [uncertainty.soil_co2] keys -> UncertaintySpec field (errors of Brook et al. 1983, log10 atm).
 _SOIL = {"intercept_sigma_log10": "soil_co2_intercept_sigma_log10",
-         "amplitude_sigma_log10": "soil_co2_amplitude_sigma_log10"}
+         "amplitude_sigma_log10": "soil_co2_amplitude_sigma_log10",
+         "rate_sigma_ln": "soil_co2_rate_sigma_ln"}
+_SOIL_UNITS = {"intercept_sigma_log10": "log10 atm", "amplitude_sigma_log10": "log10 atm",
+               "rate_sigma_ln": "1 (natural-log units)"}
 _SOIL_HELP = {"intercept_sigma_log10": "Error of the intercept -3.47, log10 atm.",
-              "amplitude_sigma_log10": "Error of the amplitude 2.09, log10 atm."}
+              "amplitude_sigma_log10": "Error of the amplitude 2.09, log10 atm.",
+              "rate_sigma_ln": "The rate 0.00172 per mm of AET times exp(N(0, sigma)), natural-log units."}
 #: [uncertainty.rocks.NAME] keys -> (low, high, unit, template example).
 _ROCK_RANGES = {"purity": (0.0, 1.0, "fraction 0-1", [0.85, 1.0]),
                 "density_g_cm3": (0.5, 5.0, "g/cm3", [2.5, 2.7])}
@@ -131,7 +136,7 @@ def parse_uncertainty(table, path) -> UncertaintySpec:
             for k, v in sub.items():
                 if k not in _SOIL:
                     raise _unknown(f"{where[:-1]}.soil_co2]", k, _SOIL)
-                values[_SOIL[k]] = _number(f"{where[:-1]}.soil_co2]", k, v, 0.0, 2.0, "log10 atm")
+                values[_SOIL[k]] = _number(f"{where[:-1]}.soil_co2]", k, v, 0.0, 2.0, _SOIL_UNITS[k])
         elif key == "saturation_ratio":
             sub = _table(where, key, value)
             ratios = []
