@@ -146,12 +146,8 @@ def run_tile(task: TileTask) -> dict:
     """Compute and write one tile; returns its record for the manifest (outputs with SHA-256
     and size, cell counts). The tile folder appears under its final name only when complete.
     The same function runs in every engine."""
-    previous_threads = _engines.limit_threads(task.threads)
-    try:
+    with _engines.threads_limited(task.threads):
         return _run_tile(task)
-    finally:
-        if previous_threads is not None:
-            _engines.limit_threads(previous_threads)
 
 
 def _run_tile(task: TileTask) -> dict:

@@ -14,6 +14,7 @@ the engine. Interface: ``submit(fn, task) -> handle``, ``wait_any(handles) -> do
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import multiprocessing
 import os
 import socket
@@ -53,6 +54,17 @@ def limit_threads(threads: int = 1) -> int | None:
         return previous
     except Exception:  # pragma: no cover - numba missing
         return None
+
+
+@contextlib.contextmanager
+def threads_limited(threads: int = 1):
+    """``limit_threads(threads)`` for the body of a with-statement, then the previous setting."""
+    previous = limit_threads(threads)
+    try:
+        yield
+    finally:
+        if previous is not None:
+            limit_threads(previous)
 
 
 #: Linux prctl option: the signal a process gets when its parent dies (linux/prctl.h).

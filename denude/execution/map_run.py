@@ -16,7 +16,7 @@ from rasterio.windows import Window
 
 from denude.core.kernel import BlockCounts, warm_up
 from denude.execution.blocks import block_windows
-from denude.execution.plan import InputReaders, gdal_env, grid_source, output_spec, plan_from_report
+from denude.execution.plan import ThreadReaders, gdal_env, grid_source, output_spec, plan_from_report
 from denude.execution.validation import check_window, validate_job, warn_about_counts
 from denude.execution.window import WindowResult, run_window
 from denude.io.grid import Grid
@@ -70,7 +70,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     remove_dead_staging(out.parent)     # leftovers of killed runs (their owner process is gone)
     staging = make_staging_dir(out)
     writers: dict = {}
-    readers = _ThreadReaders(plan)
+    readers = ThreadReaders(plan)
     try:
         for name in layers:
             writers[name] = RasterWriter(staging / OUTPUT_LAYERS[name].file, grid, output_spec(name, settings),
@@ -100,29 +100,7 @@ def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     return MapRunSummary(str(out), grid, total, outputs, wall, len(windows), report.layout, record)
 
 
-class _ThreadReaders:
-    """One ``InputReaders`` per worker thread (GDAL handles are not shared across threads)."""
-
-    def __init__(self, plan):
-        self.plan = plan
-        self._local = threading.local()
-        self._all: list[InputReaders] = []
-        self._lock = threading.Lock()
-
-    def get(self) -> InputReaders:
-        readers = getattr(self._local, "readers", None)
-        if readers is None:
-            readers = self._local.readers = InputReaders(self.plan)
-            with self._lock:
-                self._all.append(readers)
-        return readers
-
-    def close(self) -> None:
-        for readers in self._all:
-            readers.close()
-
-
-def _compute_and_write(plan, windows, layers, readers: _ThreadReaders, writers: dict, progress):
+def _compute_and_write(plan, windows, layers, readers: ThreadReaders, writers: dict, progress):
     """Compute windows on ``settings.workers`` threads (at most two per thread in flight) and
     write them in window order on this thread. Returns (total counts, table codes found)."""
     settings = plan.settings

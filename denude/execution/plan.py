@@ -11,6 +11,7 @@ import functools
 import json
 import os
 import sys
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -239,3 +240,23 @@ def gdal_env(settings: MapSettings):
     return rasterio.Env(GDAL_CACHEMAX=settings.gdal_cache_mb * 2**20)
 
 
+class ThreadReaders:
+    """One ``InputReaders`` per worker thread (GDAL handles are not shared across threads)."""
+
+    def __init__(self, plan):
+        self.plan = plan
+        self._local = threading.local()
+        self._all: list[InputReaders] = []
+        self._lock = threading.Lock()
+
+    def get(self) -> InputReaders:
+        readers = getattr(self._local, "readers", None)
+        if readers is None:
+            readers = self._local.readers = InputReaders(self.plan)
+            with self._lock:
+                self._all.append(readers)
+        return readers
+
+    def close(self) -> None:
+        for readers in self._all:
+            readers.close()

@@ -59,12 +59,8 @@ class DrawTileTask:
 def run_draw_tile(task: DrawTileTask) -> dict:
     """Draw and write one tile; returns {tile, counts, clipped_draws, codes_found, zone sums}.
     The same function runs in every engine."""
-    previous = _engines.limit_threads(task.threads)
-    try:
+    with _engines.threads_limited(task.threads):
         return _run_draw_tile(task)
-    finally:
-        if previous is not None:
-            _engines.limit_threads(previous)
 
 
 def _run_draw_tile(task: DrawTileTask) -> dict:

@@ -10,7 +10,6 @@ and the coverage fractions of a cell do not depend on which tile or window holds
 from __future__ import annotations
 
 import dataclasses
-import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -21,7 +20,7 @@ from denude.core.uncertainty import (
     NODATA, OUT_OF_RANGE, QUANTILE_LABELS, QUANTILES, UNKNOWN_CODE, block_quantiles, draw_block, exact_zeros,
     zone_draw_sums,
 )
-from denude.execution.plan import InputReaders, output_spec
+from denude.execution.plan import ThreadReaders, output_spec
 from denude.execution.summaries import zone_extents
 from denude.execution.window import WindowResult
 from denude.execution.window_inputs import read_window_inputs
@@ -129,26 +128,15 @@ class DrawWorker:
         self.lookup, self.table, self.zplan, self.grid = lookup, table, zplan, grid
         self.areas_row = areas_row
         self.planar = bool(np.all(areas_row == areas_row[0]))
-        self._local = threading.local()
-        self._lock = threading.Lock()
-        self._all_readers: list = []
+        self._readers = ThreadReaders(plan)
 
     def close(self) -> None:
-        for readers in self._all_readers:
-            readers.close()
-
-    def _readers(self):
-        readers = getattr(self._local, "readers", None)
-        if readers is None:
-            readers = self._local.readers = InputReaders(self.plan)
-            with self._lock:
-                self._all_readers.append(readers)
-        return readers
+        self._readers.close()
 
     def __call__(self, window):
         settings, lookup, table = self.settings, self.lookup, self.table
         ranges: dict = {}
-        inputs = read_window_inputs(self._readers(), settings, window, ranges)
+        inputs = read_window_inputs(self._readers.get(), settings, window, ranges)
         gain = soil_co2_gain(inputs.aet) if settings.pco2_from_aet else None
         block = draw_block(inputs.codes, inputs.runoff, inputs.pco2, inputs.temperature, inputs.fraction, lookup,
                            table, settings.chemistry, spec=self.spec, seed=self.seed, row0=int(window.row_off),
