@@ -1,5 +1,6 @@
 """The per-cell kernel: table path vs direct solver, cell rules, counts, properties."""
 
+import json
 import threading
 import warnings
 
@@ -238,3 +239,43 @@ def test_warm_up_on_a_thread_loads_the_serial_build():
     th.join()
     kinds = {(str(sig[0].dtype), str(sig[2].dtype)) for sig in fast_kernel.cell_loop_serial.signatures}
     assert ("int32", "float64") in kinds
+
+
+def test_command_line_skips_numba_blas_probe_and_keeps_the_numbers():
+    # the `denude` command asks numba not to import scipy.linalg for its BLAS probe (the
+    # compiled loops use no BLAS); the numbers must not change, and a library import of
+    # denude must leave numba's BLAS alone
+    import subprocess
+    import sys
+
+    script = (
+        "import sys, json, numpy as np\n"
+        "from denude.core.kernel import compute_block\n"
+        "from denude.core.rocks import RockTable\n"
+        "r = RockTable.builtin().lookup()\n"
+        "c = np.asarray(r.codes, np.int32)\n"
+        "one = np.ones(c.size)\n"
+        "out = compute_block(c, 480.0 * one, 0.012 * one, 11.0 * one, r, 'white', warn=False)\n"
+        "import numba.np.arraymath as a\n"
+        "print(json.dumps([a._HAVE_BLAS, 'scipy.linalg' in sys.modules,"
+        " out.denudation_mm_per_kyr.astype(float).tolist()]))\n"
+    )
+
+    def run(env_value):
+        import os
+
+        env = {k: v for k, v in os.environ.items() if k != "DENUDE_NUMBA_BLAS_PROBE"}
+        if env_value is not None:
+            env["DENUDE_NUMBA_BLAS_PROBE"] = env_value
+        proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, env=env, check=True)
+        return json.loads(proc.stdout.strip().splitlines()[-1])
+
+    skipped, library = run("skip"), run(None)
+    assert skipped[:2] == [False, False]
+    assert library[0] is True
+    assert skipped[2] == library[2] and any(v > 0 for v in library[2] if v == v)
+    # the command line sets it for its own process
+    from denude.cli import main  # noqa: F401
+    import os
+
+    assert os.environ.get("DENUDE_NUMBA_BLAS_PROBE") == "skip"

@@ -6,6 +6,7 @@ Exit codes: 0 success, 1 user error (one line on stderr, no traceback), 2 wrong 
 from __future__ import annotations
 
 import importlib
+import os
 import sys
 
 import typer
@@ -14,6 +15,10 @@ from typer.core import TyperGroup
 from denude import __version__
 from denude.cli.options import rename_old_spellings
 from denude.errors import DenudeError
+
+# the compiled loops use no BLAS: numba need not import scipy.linalg to look for one
+# (denude.core.fast_kernel._skip_blas_probe; about 0.17 s of every run's start)
+os.environ.setdefault("DENUDE_NUMBA_BLAS_PROBE", "skip")
 
 
 class OneLineErrorGroup(TyperGroup):

@@ -10,10 +10,40 @@ one that releases the GIL for callers that run blocks on their own worker thread
 from __future__ import annotations
 
 import math
+import os
+import sys
 import types
 
 import numba
 import numpy as np
+
+#: Environment variable: "skip" makes numba's one-time BLAS probe report no BLAS (set by the
+#: command line, see ``_skip_blas_probe``).
+NUMBA_BLAS_PROBE_ENV = "DENUDE_NUMBA_BLAS_PROBE"
+
+
+def _skip_blas_probe() -> None:
+    """Import ``numba.np.arraymath`` with its BLAS probe answering "none". The probe imports
+    ``scipy.linalg`` (about 0.17 s, a third of the kernel's warm-up, holding the GIL while the
+    run validates its inputs) only so that compiled code may call ``np.dot`` and ``np.linalg``;
+    denude's compiled loops call neither. Only the ``denude`` command asks for it (it is this
+    process's own business); a library user's numba keeps its BLAS."""
+    import numba.np.linalg as numba_linalg
+
+    probe = numba_linalg.ensure_blas
+
+    def no_blas():
+        raise ImportError("BLAS not probed (denude command line)")
+
+    numba_linalg.ensure_blas = no_blas
+    try:
+        import numba.np.arraymath  # noqa: F401  (binds and runs the probe once)
+    finally:
+        numba_linalg.ensure_blas = probe
+
+
+if os.environ.get(NUMBA_BLAS_PROBE_ENV) == "skip" and "numba.np.arraymath" not in sys.modules:
+    _skip_blas_probe()
 
 # numba's own work queue, never OpenMP: GNU OpenMP aborts a process that forks after a
 # parallel region has run (process pools, forked test helpers). The parallel build is only
