@@ -2,10 +2,17 @@
 
 from __future__ import annotations
 
+import os
+import tempfile
+
 import numpy as np
 import pytest
 import rasterio
 from rasterio.transform import from_origin
+
+# The load-table file cache (denude.io.table_cache) of the whole session in a folder of its
+# own, not the user's ~/.cache; subprocesses the tests start inherit it.
+os.environ.setdefault("DENUDE_CACHE_DIR", tempfile.mkdtemp(prefix="denude-test-cache-"))
 
 #: Synthetic grid used by most raster tests: UTM-like metres, arbitrary origin.
 TEST_CRS = "EPSG:32632"

@@ -200,7 +200,7 @@ def test_load_tables_built_once_when_threads_ask_together(monkeypatch):
     from denude.core import lookup
     from denude.core.constants import MINERALS
 
-    lookup._stacked_tables.cache_clear()
+    monkeypatch.setattr(lookup, "_STACKED", {})          # none built yet in this process
     built = []
     original = lookup.load_table
 
@@ -223,7 +223,6 @@ def test_load_tables_built_once_when_threads_ask_together(monkeypatch):
         th.join()
     assert len(built) == len(MINERALS) - 1          # one table per soluble mineral, once
     assert all(r[0] is results[0][0] for r in results)
-    lookup._stacked_tables.cache_clear()
 
 
 def test_warm_up_on_a_thread_loads_the_serial_build():

@@ -66,8 +66,7 @@ def load_table(mineral: str, chemistry: str) -> LoadTable:
     """The lookup table for one mineral and chemistry mode (built once per process)."""
     check_mineral(mineral)
     check_chemistry(chemistry)
-    n_t = int(round((TEMPERATURE_MAX_C - TEMPERATURE_MIN_C) / TEMPERATURE_STEP_C)) + 1
-    n_p = int(round((LOG_PCO2_MAX - LOG_PCO2_MIN) / LOG_PCO2_STEP)) + 1
+    (n_t, n_p), _ = stacked_grid()
     t = TEMPERATURE_MIN_C + TEMPERATURE_STEP_C * np.arange(n_t)
     lp = LOG_PCO2_MIN + LOG_PCO2_STEP * np.arange(n_p)
     tt, ll = np.meshgrid(t, lp, indexing="ij")
@@ -80,8 +79,10 @@ def load_table(mineral: str, chemistry: str) -> LoadTable:
 
 
 #: Held while tables are built: worker threads asking at once wait for one build instead of
-#: each building its own copy (lru_cache alone does not prevent that).
+#: each building its own copy.
 _BUILD_LOCK = threading.Lock()
+#: chemistry -> (stacked loads, grid): built here or seeded (``seed_stacked_tables``).
+_STACKED: dict = {}
 
 
 def stacked_tables(chemistry: str) -> tuple[np.ndarray, tuple[float, float, float, float]]:
@@ -90,11 +91,41 @@ def stacked_tables(chemistry: str) -> tuple[np.ndarray, tuple[float, float, floa
     nodes 0.02 apart adds at most (ln 10 / 3)^2 h^2 / 8 = 3e-5 relative error (derived).
     Built once per process and chemistry, whichever thread asks first."""
     with _BUILD_LOCK:
-        return _stacked_tables(chemistry)
+        tables = _STACKED.get(chemistry)
+        if tables is None:
+            tables = _STACKED[chemistry] = _build_stacked_tables(chemistry)
+        return tables
 
 
-@functools.lru_cache(maxsize=None)
-def _stacked_tables(chemistry: str) -> tuple[np.ndarray, tuple[float, float, float, float]]:
+def has_stacked_tables(chemistry: str) -> bool:
+    """Whether this process holds the stacked tables of ``chemistry`` already."""
+    return chemistry in _STACKED
+
+
+def stacked_grid() -> tuple[tuple[int, int], tuple[float, float, float, float]]:
+    """((n_t, n_p), (t0 [C], dt [C], lp0, dlp [log10 atm])) of every load table."""
+    n_t = int(round((TEMPERATURE_MAX_C - TEMPERATURE_MIN_C) / TEMPERATURE_STEP_C)) + 1
+    n_p = int(round((LOG_PCO2_MAX - LOG_PCO2_MIN) / LOG_PCO2_STEP)) + 1
+    return (n_t, n_p), (TEMPERATURE_MIN_C, TEMPERATURE_STEP_C, LOG_PCO2_MIN, LOG_PCO2_STEP)
+
+
+def seed_stacked_tables(chemistry: str, stack: np.ndarray, grid) -> None:
+    """Take ``stack`` (float32, (minerals, n_t, n_p)) with ``grid`` (t0, dt, lp0, dlp) as this
+    process's stacked tables of ``chemistry``, e.g. read back from a file cache of the same
+    build (``denude.io.table_cache``); ValueError for another shape, dtype or grid. Tables
+    already held are kept."""
+    from denude.core.constants import MINERALS
+
+    check_chemistry(chemistry)
+    shape, expected = stacked_grid()
+    if stack.shape != (len(MINERALS),) + shape or stack.dtype != np.float32 or tuple(grid) != expected:
+        raise ValueError(f"stacked tables of shape {stack.shape}, {stack.dtype}, grid {tuple(grid)}; "
+                         f"expected {(len(MINERALS),) + shape}, float32, {expected}")
+    with _BUILD_LOCK:
+        _STACKED.setdefault(chemistry, (np.ascontiguousarray(stack), expected))
+
+
+def _build_stacked_tables(chemistry: str) -> tuple[np.ndarray, tuple[float, float, float, float]]:
     from denude.core.constants import MINERALS
 
     tables = [load_table(m, chemistry) for m in MINERALS[1:]]

@@ -14,9 +14,9 @@ from typing import Callable
 
 from rasterio.windows import Window
 
-from denude.core.kernel import BlockCounts, warm_up
+from denude.core.kernel import BlockCounts
 from denude.execution.blocks import block_windows
-from denude.execution.plan import ThreadReaders, gdal_env, grid_source, output_spec, plan_from_report
+from denude.execution.plan import ThreadReaders, gdal_env, grid_source, output_spec, plan_from_report, warm_up_kernel
 from denude.execution.validation import check_window, validate_job, warn_about_counts
 from denude.execution.window import WindowResult, run_window
 from denude.io.grid import Grid
@@ -58,7 +58,7 @@ def run_map(settings: MapSettings, progress: Callable[[int, int], None] | None =
 
 def _run_map(settings: MapSettings, progress, started: float) -> MapRunSummary:
     # the load table and the compiled loop get ready while the inputs are validated
-    threading.Thread(target=warm_up, args=(settings.chemistry,), name="denude-warm-up", daemon=True).start()
+    threading.Thread(target=warm_up_kernel, args=(settings.chemistry,), name="denude-warm-up", daemon=True).start()
     report = validate_job(settings, for_output=True, scan=False)
     settings = report.settings          # with the input units validation resolved
     grid = report.grid

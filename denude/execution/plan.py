@@ -22,6 +22,7 @@ import denude
 from denude.cautions import CAUTION, UPPER_BOUND_NOTE
 from denude.core.cover import COVER_CLASS_NAMES, COVER_COLOURS
 from denude.core.hazard import DEFAULT_COLOURS
+from denude.core.kernel import warm_up
 from denude.core.rocks import RockTable
 from denude.io.grid import Grid, check_resolution, parse_crs, snap_bounds_outward
 from denude.io.jobfile import MapSettings
@@ -30,6 +31,7 @@ from denude.io.rasters import (
 )
 from denude.io.layer_meta import layer_extras
 from denude.io.rock_csv import read_rock_table
+from denude.io.table_cache import prime_tables
 from denude.registry import INPUT_ROLES, OUTPUT_LAYERS
 
 SOURCES = (
@@ -164,7 +166,9 @@ def _stamps(settings: MapSettings) -> tuple:
 
 
 def prepare_job(settings: MapSettings, grid: Grid) -> JobPlan:
-    """Warp plans and the rock table for a job (cached per process while the files are unchanged)."""
+    """Warp plans and the rock table for a job (cached per process while the files are
+    unchanged); the chemistry's load tables made ready (``io.table_cache``)."""
+    prime_tables(settings.chemistry)
     return _prepare_job(settings, grid, _stamps(settings))
 
 
@@ -175,6 +179,13 @@ def _prepare_job(settings: MapSettings, grid: Grid, stamps: tuple) -> JobPlan:
         warps[role] = plan_warp(inspect_raster(path, role), grid, INPUT_ROLES[role].categorical,
                                 requested_resampling(settings, role))
     return JobPlan(settings, grid, warps, load_rocks(settings))
+
+
+def warm_up_kernel(chemistry: str) -> None:
+    """The chemistry's load tables (file cache or build) and the compiled loops loaded
+    (``core.kernel.warm_up``): started on a thread of its own while a run validates."""
+    prime_tables(chemistry)
+    warm_up(chemistry)
 
 
 def plan_from_report(report) -> JobPlan:
