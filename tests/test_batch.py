@@ -394,6 +394,10 @@ def test_cli_runs_resumes_and_dry_runs(region, tmp_path):
     assert sorted(p.name for p in out.iterdir()) == sorted(VRTS + categories + ["manifest.json", "rocks.csv", "run.json", "tiles"])
     again = runner.invoke(app, cli_args(region["paths"], out, "--workers", "0"))
     assert again.exit_code == 0 and "6 tiles, 0 computed, 6 already done" in again.output
+    # the mosaics carry the band unit of the tiles' GeoTIFFs (as a desktop GIS shows it)
+    for vrt in VRTS:
+        with rasterio.open(out / vrt) as mosaic, rasterio.open(out / "tiles" / "r000_c000" / vrt.replace(".vrt", ".tif")) as tile:
+            assert mosaic.units == tile.units and mosaic.units[0], vrt
 
 
 def test_cli_warns_once_about_overlapping_input_tiles(region, tmp_path):
