@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import threading
 import time
+import warnings
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -32,7 +33,7 @@ from denude.core.uncertainty import (
     QUANTILE_LABELS, QUANTILES, UncertaintySpec, draw_table, exact_value, exact_zeros, summary_quantiles,
     variance_shares,
 )
-from denude.errors import InputError
+from denude.errors import DenudeWarning, InputError
 from denude.execution.blocks import block_windows
 from denude.execution.engines import check_scheduler, check_workers
 from denude.execution.plan import gdal_env, grid_source, prepare_job
@@ -135,10 +136,7 @@ def _run(settings, spec, n_draws, seed, zones, progress, started, tiling):
             _open_band_writers(writers, staging, grid, settings, report.layout, n_draws, seed)
             total, clipped, found = _compute_windows(work, windows, settings, plan, writers, sums, valid_area,
                                                      progress)
-            work.close()
-            for writer in writers.values():
-                writer.finish()
-            outputs = [writer.close().name for writer in writers.values()]
+            outputs = _finish_band_writers(work, writers)
         else:
             total, clipped, found, outputs, engine = run_draw_tiles(
                 staging, tiles, settings, grid, report.layout, spec, seed, n_draws, table, zplan, sums, valid_area,
@@ -168,16 +166,26 @@ def _run(settings, spec, n_draws, seed, zones, progress, started, tiling):
             writer.abort()
         raise_discarded([(staging, out)], exc)
 
+    _warn_about_counts(counts)
+    return UncertaintyRunSummary(str(out), n_draws, seed, outputs + ["run.json"], counts, wall, record)
+
+
+def _finish_band_writers(work, writers: dict) -> list:
+    """Close the window readers, finish every band raster (overviews, COG copies one at a
+    time) and return their file names."""
+    work.close()
+    for writer in writers.values():
+        writer.finish()
+    return [writer.close().name for writer in writers.values()]
+
+
+def _warn_about_counts(counts: dict) -> None:
+    """The one-line warnings of a finished run: out-of-range cells, clipped draws."""
     warn_about_counts({"out_of_range": counts["out_of_range"]})
     if counts["clipped_draws"]:
-        import warnings
-
-        from denude.errors import DenudeWarning
-
         warnings.warn(DenudeWarning(
             f"{counts['clipped_draws']} cell draws left 0-90 degrees C or 1e-8-1 atm and were clipped to that range; "
-            "check the temperature and PCO2 errors under [uncertainty] if that many is unexpected"), stacklevel=2)
-    return UncertaintyRunSummary(str(out), n_draws, seed, outputs + ["run.json"], counts, wall, record)
+            "check the temperature and PCO2 errors under [uncertainty] if that many is unexpected"), stacklevel=3)
 
 
 def _start_hashing(report, settings):
