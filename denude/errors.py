@@ -72,3 +72,10 @@ class MosaicOverlapWarning(DenudeWarning):
 
 class GeometryRepairWarning(DenudeWarning):
     """Invalid polygons (e.g. self-intersecting) were repaired with shapely.make_valid."""
+
+
+def one_line(message: object) -> str:
+    """A message (or an exception) collapsed to a single line; an exception without text
+    gives its class name."""
+    text = " ".join(str(message).split())
+    return text or (type(message).__name__ if isinstance(message, BaseException) else "")

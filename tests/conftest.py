@@ -3,16 +3,25 @@
 from __future__ import annotations
 
 import os
-import tempfile
 
 import numpy as np
 import pytest
 import rasterio
 from rasterio.transform import from_origin
 
-# The load-table file cache (denude.io.table_cache) of the whole session in a folder of its
-# own, not the user's ~/.cache; subprocesses the tests start inherit it.
-os.environ.setdefault("DENUDE_CACHE_DIR", tempfile.mkdtemp(prefix="denude-test-cache-"))
+
+@pytest.fixture(autouse=True, scope="session")
+def _session_table_cache(tmp_path_factory):
+    """The load-table file cache (denude.io.table_cache) of the whole session in pytest's own
+    temporary folder, not the user's ~/.cache; subprocesses the tests start inherit it."""
+    previous = os.environ.get("DENUDE_CACHE_DIR")
+    os.environ["DENUDE_CACHE_DIR"] = str(tmp_path_factory.mktemp("table-cache"))
+    yield
+    if previous is None:
+        os.environ.pop("DENUDE_CACHE_DIR", None)
+    else:
+        os.environ["DENUDE_CACHE_DIR"] = previous
+
 
 #: Synthetic grid used by most raster tests: UTM-like metres, arbitrary origin.
 TEST_CRS = "EPSG:32632"

@@ -55,6 +55,13 @@ def test_a_damaged_or_foreign_cache_file_is_rebuilt(tmp_path, monkeypatch):
     path = table_cache.table_path("white")
     path.write_bytes(b"not a table")
     assert table_cache._read(path) is None
+    good = tmp_path / "good.npz"
+    np.savez(good, stack=np.zeros((4, 181, 401), np.float32), grid=np.zeros(4))
+    for damaged in (good.read_bytes()[:200], b"PK\x03\x04" + b"\0" * 64):   # a truncated zip, zip-like garbage
+        path.write_bytes(damaged)
+        assert table_cache._read(path) is None
+    path.write_bytes(good.read_bytes()[:200])
+    assert _run(str(tmp_path))[0] == "built"          # and the run goes on (no traceback)
     stack, grid = lookup._build_stacked_tables("white")
     np.savez(path, stack=stack[:, :10], grid=np.asarray(grid))          # another shape
     assert table_cache._read(path) is not None

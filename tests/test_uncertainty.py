@@ -328,7 +328,8 @@ def test_a_tiled_run_equals_the_whole_grid_bit_for_bit(job, tmp_path):
     assert (tmp_path / "t32" / "tiles" / "r001_c001" / band_files()[0]).is_file()
 
 
-def test_a_failing_tile_fails_the_run_and_leaves_nothing(job, map_inputs, tmp_path):
+@pytest.mark.parametrize("workers", [0, 2])
+def test_a_failing_tile_fails_the_run_and_leaves_nothing(job, map_inputs, tmp_path, workers):
     # the rock table lacks code 5, which the lithology holds: each window meets it, the first
     # tile reporting it fails the run, and no output folder is left behind
     path, zones = job
@@ -341,7 +342,7 @@ def test_a_failing_tile_fails_the_run_and_leaves_nothing(job, map_inputs, tmp_pa
         writer.writerows(rows)
     settings = build_settings({"out": str(tmp_path / "bad"), "block_size": 16, "rocks": str(table)}, job_file=path)
     with pytest.raises(DenudeError) as err:
-        run_uncertainty(settings, read_uncertainty(path), 8, 3, zones, tile_size=16, workers=0)
+        run_uncertainty(settings, read_uncertainty(path), 8, 3, zones, tile_size=16, workers=workers)
     assert "tile r0" in str(err.value) and "5" in str(err.value) and "\n" not in str(err.value)
     assert not (tmp_path / "bad").exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".bad")]
@@ -361,6 +362,11 @@ def test_tiled_cli_keeps_only_vrts_with_no_merge_and_refuses_tile_options_alone(
     result = runner.invoke(app, ["uncertainty", "--job", str(path), "--draws", "8", "--out", str(tmp_path / "z"),
                                  "--tile-size", "20"])
     assert result.exit_code == 1 and "multiple of 16" in result.stderr and not (tmp_path / "z").exists()
+    # --workers 0 means tiles in this process: without tiles it is refused, naming the option, not the job file
+    result = runner.invoke(app, ["uncertainty", "--job", str(path), "--draws", "8", "--out", str(tmp_path / "w"),
+                                 "--workers", "0"])
+    assert result.exit_code == 1 and "--workers 0" in result.stderr and "--tile-size" in result.stderr
+    assert "job file" not in result.stderr and len(result.stderr.strip().splitlines()) == 1
 
 
 @pytest.mark.parametrize("origin, res", [((512345.678, 4301234.567), 30.123457), ((-3.7 + 1 / 7, 41.3 + 1 / 3), 1 / 1200)])

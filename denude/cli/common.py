@@ -12,17 +12,12 @@ from typing import Callable, Iterator, Optional, TypeVar
 import typer
 
 from denude.cautions import CAUTION
-from denude.errors import DenudeError, DenudeWarning
+from denude.errors import DenudeError, DenudeWarning, one_line
 
 __all__ = ["CAUTION", "handle_user_errors", "one_line", "progress_callback"]
 
 F = TypeVar("F", bound=Callable)
 
-
-
-def one_line(message: object) -> str:
-    """Collapse a message to a single line."""
-    return " ".join(str(message).split())
 
 
 def handle_user_errors(func: F) -> F:

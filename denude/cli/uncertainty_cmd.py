@@ -14,7 +14,7 @@ import typer
 
 from denude.cli.common import CAUTION, handle_user_errors, progress_callback
 from denude.cli.options import Scheduler
-from denude.errors import InputError, JobFileError
+from denude.errors import JobFileError
 
 
 def uncertainty(
@@ -44,16 +44,16 @@ def uncertainty(
     spec = read_uncertainty(job)
     if spec == type(spec)():
         raise JobFileError(f"job file {job}: no input errors under [uncertainty]; add e.g. runoff_sigma_ln = 0.2")
-    thread_workers = workers if tile_size is None else None      # with tiles: processes, given to the run
-    settings = build_settings({"out": str(out), "workers": thread_workers, "overwrite": overwrite or None}, job_file=job)
+    # without tiles the workers are threads (settings); with tiles, processes (the run's own
+    # argument, where 0 means this process; the run refuses 0 without tiles)
+    as_threads = tile_size is None and workers != 0
+    settings = build_settings({"out": str(out), "workers": workers if as_threads else None,
+                               "overwrite": overwrite or None}, job_file=job)
     zone_spec = ZoneSpec(str(zones.resolve()), zones_layer, zones_id_field) if zones is not None else None
-    if (scheduler is not None or no_merge) and tile_size is None:
-        raise InputError("--scheduler and --no-merge need --tile-size; add e.g. --tile-size 4096")
-    if workers == 0 and tile_size is None:
-        raise InputError("--workers 0 (tiles in this process) needs --tile-size; give --workers 1 or more")
     with progress_callback("tiles" if tile_size else "windows", quiet) as progress:
         summary = run_uncertainty(settings, spec, draws, seed, zone_spec, progress=progress, tile_size=tile_size,
-                                  scheduler=scheduler, merge=not no_merge, workers=workers, note=None if quiet else typer.echo)
+                                  scheduler=scheduler, merge=not no_merge, workers=None if as_threads else workers,
+                                  note=None if quiet else typer.echo)
     if not quiet:
         typer.echo(f"{summary.out_dir}: {summary.draws} draws (seed {summary.seed}), "
                    f"{summary.counts['computed']} cells computed")

@@ -28,9 +28,12 @@ def _skip_blas_probe() -> None:
     run validates its inputs) only so that compiled code may call ``np.dot`` and ``np.linalg``;
     denude's compiled loops call neither. Only the ``denude`` command asks for it (it is this
     process's own business); a library user's numba keeps its BLAS."""
-    import numba.np.linalg as numba_linalg
+    try:
+        import numba.np.linalg as numba_linalg
 
-    probe = numba_linalg.ensure_blas
+        probe = numba_linalg.ensure_blas
+    except (ImportError, AttributeError):   # another numba layout: its probe runs as usual
+        return
 
     def no_blas():
         raise ImportError("BLAS not probed (denude command line)")
@@ -38,6 +41,8 @@ def _skip_blas_probe() -> None:
     numba_linalg.ensure_blas = no_blas
     try:
         import numba.np.arraymath  # noqa: F401  (binds and runs the probe once)
+    except Exception:   # pragma: no cover - a numba whose arraymath fails this way imports it later, probing
+        sys.modules.pop("numba.np.arraymath", None)
     finally:
         numba_linalg.ensure_blas = probe
 

@@ -29,13 +29,13 @@ from typing import Callable
 
 from pyproj import CRS as ProjCRS
 
-from denude.errors import BatchError, DenudeError, InputError, OutputError, TileError  # noqa: F401
+from denude.errors import BatchError, DenudeError, InputError, OutputError, TileError, one_line  # noqa: F401
 from denude.execution import engines as _engines
 from denude.execution.batch_outputs import (
     TILES_DIR, ZONES_GPKG, layer_vrts, merge_layers, write_rock_table_copy, zone_summary,
 )
 from denude.execution.batch_tile import (  # noqa: F401  (names of the pre-split module)
-    ROCKS_CSV, ZONES_PARTIAL, TileTask, ZoneSpec, _one_line, polygons_on_grid, run_tile, tile_gdal_env,
+    ROCKS_CSV, ZONES_PARTIAL, TileTask, ZoneSpec, polygons_on_grid, run_tile, tile_gdal_env,
     zone_geometries,
 )
 from denude.execution.plan import grid_source, raster_roles
@@ -354,7 +354,7 @@ class BatchJob:
             rec.update(state="done", error=None, outputs=value["outputs"], counts=value["counts"],
                        wall_time_s=value["wall_time_s"])
             return
-        message = _one_line(value) if isinstance(value, DenudeError) else f"tile {tid}: {type(value).__name__}: {_one_line(value)}"
+        message = one_line(value) if isinstance(value, DenudeError) else f"tile {tid}: {type(value).__name__}: {one_line(value)}"
         rec.update(state="failed", error=message)
         self.failed[tid] = message
 

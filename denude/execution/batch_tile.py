@@ -23,7 +23,7 @@ from pyproj import CRS as ProjCRS
 
 from denude.core.kernel import BlockCounts
 from denude.core.zonal import ZonalAccumulator
-from denude.errors import DenudeError, TileError
+from denude.errors import DenudeError, TileError, one_line
 from denude.execution import engines as _engines
 from denude.execution.plan import InputReaders, output_spec, prepare_job
 from denude.execution.summaries import zone_partials
@@ -82,11 +82,6 @@ class TileTask:
     threads: int = 1             # kernel threads per task
 
 
-def _one_line(exc: BaseException) -> str:
-    text = " ".join(str(exc).split())
-    return text or type(exc).__name__
-
-
 
 class TileReaders(InputReaders):
     """InputReaders that name the input and the tile when a read fails."""
@@ -103,7 +98,7 @@ class TileReaders(InputReaders):
         except Exception as exc:
             raise TileError(
                 f"tile {self.tile_id}: {role} raster {self.plan.warps[role].info.path} cannot be read in this tile "
-                f"({_one_line(exc)}); check that the input files (or mosaic tiles) under this tile are readable rasters"
+                f"({one_line(exc)}); check that the input files (or mosaic tiles) under this tile are readable rasters"
             ) from None
 
 
@@ -193,7 +188,7 @@ def _run_tile(task: TileTask) -> dict:
             raise
         where = traceback.extract_tb(exc.__traceback__)[-1]
         raise TileError(
-            f"tile {tile.id}: {type(exc).__name__}: {_one_line(exc)} (at {Path(where.filename).name}:{where.lineno}); "
+            f"tile {tile.id}: {type(exc).__name__}: {one_line(exc)} (at {Path(where.filename).name}:{where.lineno}); "
             "check the inputs under this tile, then run again with --retry-failed"
         ) from None
     return {"tile": tile.id, "outputs": outputs, "counts": counts.as_dict(),

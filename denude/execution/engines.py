@@ -1,4 +1,4 @@
-"""Execution engines of `denude batch`: where the per-tile function runs.
+"""Execution engines of `denude batch` and `denude uncertainty --tile-size`: where the per-tile function runs.
 
 * ``InlineEngine``: in the calling process, one tile after another (tests, debugging).
 * ``LocalPoolEngine``: a local process pool (``concurrent.futures.ProcessPoolExecutor`` with the
@@ -217,7 +217,8 @@ class LocalPoolEngine:
         try:
             return True, handle.result()
         except cf.process.BrokenProcessPool:
-            return False, EngineError("a worker process died (out of memory or killed); the tile will be retried if --retries allows")
+            return False, EngineError("a worker process died (out of memory or killed); give it more memory (fewer --workers "
+                                      "or a smaller --tile-size); a batch retries the tile if --retries allows")
         except Exception as exc:
             return False, exc
 
@@ -326,6 +327,7 @@ class DaskEngine:
         self.client = None
         self.dashboard_link = None
         self._finished = None      # distributed.as_completed over every submitted future
+        self._open: set = set()    # submitted futures not yet released
 
     def __enter__(self):
         try:
@@ -351,8 +353,13 @@ class DaskEngine:
             self.dashboard_link = None
         return self
 
-    def __exit__(self, *exc):
+    def __exit__(self, exc_type, *exc):
         if self.client is not None:
+            if exc_type is not None and self._open:   # a failed run: no task of it should start late
+                try:
+                    self.client.cancel(list(self._open), force=True)
+                except Exception:  # pragma: no cover - the cluster went away
+                    pass
             self.client.close()
         return False
 
@@ -367,6 +374,7 @@ class DaskEngine:
         from distributed import as_completed
 
         future = self.client.submit(fn, task, pure=False)
+        self._open.add(future)
         if self._finished is None:
             self._finished = as_completed([future], loop=self.client.loop)
         else:
@@ -386,6 +394,7 @@ class DaskEngine:
         except Exception as exc:
             return False, exc
         finally:
+            self._open.discard(handle)
             handle.release()
 
 

@@ -40,14 +40,14 @@ from denude.execution.plan import gdal_env, grid_source, prepare_job
 from denude.execution.tiling import check_tile_size, make_tiles
 from denude.execution.uncertainty_tiles import run_draw_tiles
 from denude.execution.uncertainty_windows import (  # noqa: F401  (band_files, band_spec: names of this module)
-    BAND_LAYERS, METHOD, DrawWorker, add_zone_partial, band_files, band_spec, zone_plan,
+    METHOD, DrawWorker, add_zone_partial, band_files, open_band_writers, write_bands, zone_plan,
 )
 from denude.execution.validation import check_window, refuse_inputs_inside, validate_job, warn_about_counts
 from denude.io.grid import cell_areas_km2
 from denude.io.jobfile import MapSettings
 from denude.io.mosaic import is_virtual_path
 from denude.io.outdir import commit_dir, make_staging_dir, raise_discarded, remove_dead_staging
-from denude.io.rasters import RasterWriter, file_sha256
+from denude.io.rasters import file_sha256
 from denude.io.uncertainty_spec import check_rock_names
 from denude.reports.run_record import RUN_RECORD, run_record, write_run_record
 from denude.reports.summary_files import layer_provenance, sidecar_head, write_summary_files, zone_table
@@ -92,7 +92,13 @@ def run_uncertainty(settings: MapSettings, spec: UncertaintySpec, draws: int, se
         raise InputError(f"--draws {draws!r} must be an integer from 2 to {MAX_DRAWS}; e.g. 64")
     if not (isinstance(seed, int) and 0 <= seed < 2**63):
         raise InputError(f"--seed {seed!r} must be an integer from 0 to 2**63 - 1")
-    if tile_size is not None:
+    if tile_size is None:
+        if scheduler is not None or not merge:
+            raise InputError("--scheduler and --no-merge need --tile-size; add e.g. --tile-size 4096")
+        if workers is not None:
+            raise InputError(f"--workers {workers} as tile processes needs --tile-size; without tiles the workers are "
+                             "threads of this process: give --workers 1 or more, or add e.g. --tile-size 4096")
+    else:
         check_tile_size(tile_size)
         workers = check_workers(settings.workers if workers is None else workers)
         check_scheduler(scheduler)
@@ -133,7 +139,7 @@ def _run(settings, spec, n_draws, seed, zones, progress, started, tiling):
     outputs: list = []
     try:
         if tiles is None:
-            _open_band_writers(writers, staging, grid, settings, report.layout, n_draws, seed)
+            open_band_writers(writers, staging, grid, settings, report.layout, n_draws, seed)
             total, clipped, found = _compute_windows(work, windows, settings, plan, writers, sums, valid_area,
                                                      progress)
             outputs = _finish_band_writers(work, writers)
@@ -200,16 +206,6 @@ def _start_hashing(report, settings):
     return hasher, hashes
 
 
-def _open_band_writers(writers: dict, staging, grid, settings, layout, n_draws: int, seed: int) -> None:
-    """Add one RasterWriter per (layer, quantile label) band raster, in the staging folder, to
-    ``writers`` (filled as they open, so a failure aborts those already open)."""
-    for layer, stem, unit in BAND_LAYERS:
-        for label in QUANTILE_LABELS:
-            spec_out = band_spec(layer, label, settings, n_draws, seed)
-            writers[(layer, label)] = RasterWriter(staging / spec_out.name, grid, spec_out, settings.block_size,
-                                                   settings.compress, layout)
-
-
 def _compute_windows(work, windows, settings, plan, writers, sums, valid_area, progress):
     """Run ``work`` over the windows on a thread pool (at most workers + 1 in flight), check
     and write each result in order on this thread and add its zone sums into ``sums`` and
@@ -232,9 +228,7 @@ def _compute_windows(work, windows, settings, plan, writers, sums, valid_area, p
             nxt = next(queue, None)
             if nxt is not None:
                 pending.append(pool.submit(work, nxt))
-            for layer, _, _ in BAND_LAYERS:
-                for j, label in enumerate(QUANTILE_LABELS):
-                    writers[(layer, label)].write(bands[layer][j], window)
+            write_bands(writers, bands, window)
             total = total + check.counts
             clipped += n_clip
             add_zone_partial(sums, valid_area, partial)

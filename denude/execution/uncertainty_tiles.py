@@ -23,19 +23,19 @@ import rasterio
 
 from denude.core.kernel import BlockCounts
 from denude.core.uncertainty import QUANTILE_LABELS, UncertaintySpec, exact_zeros
-from denude.errors import DenudeError, TileError
+from denude.errors import DenudeError, TileError, one_line
 from denude.execution import engines as _engines
 from denude.execution.batch_outputs import TILES_DIR, merge_mosaics, mosaic_vrts
-from denude.execution.batch_tile import _one_line, tile_gdal_env
+from denude.execution.batch_tile import tile_gdal_env
 from denude.execution.plan import prepare_job
 from denude.execution.tiling import Tile, sub_windows
 from denude.execution.uncertainty_windows import (
-    BAND_LAYERS, DrawWorker, ZonePlan, add_zone_partial, band_file, band_spec,
+    BAND_LAYERS, DrawWorker, ZonePlan, add_zone_partial, band_file, band_spec, open_band_writers, write_bands,
 )
 from denude.execution.validation import check_window
 from denude.io.grid import Grid, cell_areas_km2
 from denude.io.jobfile import MapSettings
-from denude.io.rasters import RasterWriter, choose_layout
+from denude.io.rasters import choose_layout
 
 
 @dataclass(frozen=True)
@@ -54,6 +54,12 @@ class DrawTileTask:
     layout: str                  # tile file layout: 'cog' or 'tiled'
     gdal_env: dict = field(default_factory=dict)
     threads: int = 1             # numba threads per task
+
+
+def tile_error(tile_id: str, exc: BaseException) -> TileError:
+    """The one-line error of a tile that failed with something other than a user error."""
+    return TileError(f"tile {tile_id}: {type(exc).__name__}: {one_line(exc)}; check the inputs under this tile "
+                     "and run again")
 
 
 def run_draw_tile(task: DrawTileTask) -> dict:
@@ -75,13 +81,9 @@ def _run_draw_tile(task: DrawTileTask) -> dict:
             areas_row, _ = cell_areas_km2(task.grid)
             work = DrawWorker(plan, settings, task.spec, task.seed, lookup, task.table, task.zones, task.grid,
                               areas_row)
-            folder.mkdir(parents=True, exist_ok=False)
-            tile_grid = tile.grid(task.grid)
-            for layer, _, _ in BAND_LAYERS:
-                for label in QUANTILE_LABELS:
-                    out_spec = band_spec(layer, label, settings, task.draws, task.seed)
-                    writers[(layer, label)] = RasterWriter(folder / out_spec.name, tile_grid, out_spec,
-                                                           settings.block_size, settings.compress, task.layout)
+            folder.mkdir(exist_ok=False)    # not parents: a task that starts after a failed run's
+            #                                 staging folder is gone must fail, not create it again
+            open_band_writers(writers, folder, tile.grid(task.grid), settings, task.layout, task.draws, task.seed)
             n_zones = len(task.zones.wkbs) if task.zones is not None else 0
             sums = {k: exact_zeros(n_zones, task.draws) for k in ("volume", "mass", "co2")}
             area = exact_zeros(n_zones, 1)
@@ -89,9 +91,7 @@ def _run_draw_tile(task: DrawTileTask) -> dict:
             for grid_window, tile_window in sub_windows(tile, settings.block_size):
                 _, bands, check, n_clip, partial = work(grid_window)
                 check_window(settings, plan, check, f"tile {tile.id}: ")
-                for layer, _, _ in BAND_LAYERS:
-                    for j, label in enumerate(QUANTILE_LABELS):
-                        writers[(layer, label)].write(bands[layer][j], tile_window)
+                write_bands(writers, bands, tile_window)
                 counts, clipped = counts + check.counts, clipped + n_clip
                 found.update(check.codes_present)
                 add_zone_partial(sums, area, partial)
@@ -102,12 +102,12 @@ def _run_draw_tile(task: DrawTileTask) -> dict:
             writer.abort()
         if isinstance(exc, DenudeError) or not isinstance(exc, Exception):
             raise
-        raise TileError(f"tile {tile.id}: {type(exc).__name__}: {_one_line(exc)}; check the inputs under this tile "
-                        "and run again") from None
+        raise tile_error(tile.id, exc) from None
     finally:
         if work is not None:
             work.close()
-    touched = np.flatnonzero(area[:, 0].any(axis=-1) | sums["volume"].any(axis=(1, 2))) if n_zones else np.array([], int)
+    touched = (np.flatnonzero(area.any(axis=(1, 2)) | np.any([v.any(axis=(1, 2)) for v in sums.values()], axis=0))
+               if n_zones else np.array([], int))
     return {"tile": tile.id, "counts": counts.as_dict(), "clipped_draws": int(clipped), "codes_found": sorted(found),
             "zones": (touched, {k: v[touched] for k, v in sums.items()}, area[touched])}
 
@@ -142,10 +142,7 @@ def run_draw_tiles(staging: Path, tiles: list[Tile], settings: MapSettings, grid
                 tid = pending.pop(handle)
                 ok, value = engine.outcome(handle)
                 if not ok:
-                    if isinstance(value, DenudeError):
-                        raise value
-                    raise TileError(f"tile {tid}: {type(value).__name__}: {_one_line(value)}; check the inputs "
-                                    "under this tile and run again")
+                    raise value if isinstance(value, DenudeError) else tile_error(tid, value)
                 total = total + BlockCounts.from_dict(value["counts"])
                 clipped += value["clipped_draws"]
                 found.update(value["codes_found"])

@@ -26,6 +26,7 @@ from denude.execution.window import WindowResult
 from denude.execution.window_inputs import read_window_inputs
 from denude.io.coverage import coverage_pairs
 from denude.io.jobfile import MapSettings
+from denude.io.rasters import RasterWriter
 
 #: Quantity rasters of an uncertainty run: (map layer whose style they share, file stem, unit stem).
 BAND_LAYERS = (("denudation", "denudation", "mm_per_kyr"), ("co2_drawdown", "co2_drawdown", "t_per_km2_yr"))
@@ -197,3 +198,22 @@ def add_zone_partial(sums: dict, valid_area: np.ndarray, partial) -> None:
     for key in sums:
         sums[key][sel] += part[key]
     valid_area[sel] += area
+
+
+def open_band_writers(writers: dict, folder, grid, settings: MapSettings, layout: str, n_draws: int,
+                      seed: int) -> None:
+    """Add one RasterWriter per (layer, quantile label) band raster of ``grid`` (the target
+    grid or a tile's) in ``folder`` to ``writers``, filled as they open, so that a failure
+    aborts those already open."""
+    for layer, _, _ in BAND_LAYERS:
+        for label in QUANTILE_LABELS:
+            spec = band_spec(layer, label, settings, n_draws, seed)
+            writers[(layer, label)] = RasterWriter(folder / spec.name, grid, spec, settings.block_size,
+                                                   settings.compress, layout)
+
+
+def write_bands(writers: dict, bands: dict, window) -> None:
+    """Queue one window's quantile bands (``DrawWorker``'s ``bands``) to their writers."""
+    for layer, _, _ in BAND_LAYERS:
+        for j, label in enumerate(QUANTILE_LABELS):
+            writers[(layer, label)].write(bands[layer][j], window)

@@ -2,8 +2,8 @@
 
 Building the tables solves the equilibria on 181 x 401 nodes per mineral (about 0.1 s of
 Python, on the critical path of every run's start, in every batch worker process). The cache
-keeps them as ``.npy`` files keyed on the SHA-256 of the chemistry mode, the package version
-and the source of every module of ``denude.core`` (any change to the numerics makes a new
+keeps them as ``.npz`` files keyed on the SHA-256 of the chemistry mode, the package and numpy
+versions, the machine architecture and the source of every module of ``denude.core`` (any change to the numerics makes a new
 key, so a stale table is never read) and seeds the core's in-process table with them.
 
 Where: ``$DENUDE_CACHE_DIR``, else ``$XDG_CACHE_HOME/denude``, else ``~/.cache/denude``;
@@ -18,6 +18,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import os
+import platform
 import tempfile
 from pathlib import Path
 
@@ -54,7 +55,8 @@ def _core_sources_sha256() -> str:
 def table_key(chemistry: str) -> str:
     """SHA-256 (hex) naming the cached tables of ``chemistry`` for this code."""
     digest = hashlib.sha256()
-    for part in (str(_FORMAT), denude.__version__, np.__version__.split(".")[0], chemistry, _core_sources_sha256()):
+    for part in (str(_FORMAT), denude.__version__, np.__version__, platform.machine(), chemistry,
+                 _core_sources_sha256()):
         digest.update(part.encode() + b"\0")
     return digest.hexdigest()
 
@@ -91,7 +93,7 @@ def _read(path: Path):
         with np.load(path, allow_pickle=False) as data:
             stack = np.ascontiguousarray(data["stack"])
             grid = tuple(float(v) for v in data["grid"])
-    except (OSError, KeyError, ValueError, EOFError):
+    except Exception:     # any damage (truncated zip, foreign file): built again and replaced
         return None
     if stack.dtype != np.float32 or stack.ndim != 3 or len(grid) != 4 or not np.all(np.isfinite(stack)):
         return None

@@ -44,7 +44,7 @@ _SIGMAS = {
     "temperature_sigma_c": (20.0, "degrees C", 1.0, "Temperature plus N(0, sigma), degrees C."),
 }
 _CELL_NOISE_HELP = "true: independent cell-level draws on top of the regional one."
-#: [uncertainty.soil_co2] keys -> UncertaintySpec field (errors of Brook et al. 1983, log10 atm).
+#: [uncertainty.soil_co2] keys -> UncertaintySpec field (errors of Brook et al. 1983; units in _SOIL_UNITS).
 _SOIL = {"intercept_sigma_log10": "soil_co2_intercept_sigma_log10",
          "amplitude_sigma_log10": "soil_co2_amplitude_sigma_log10",
          "rate_sigma_ln": "soil_co2_rate_sigma_ln"}

@@ -150,7 +150,8 @@ def perturbed_inputs(record: dict) -> str:
     for key, text in (("runoff_sigma_ln", "runoff (sigma {:g} in ln)"), ("pco2_sigma_log10", "soil PCO2 (sigma {:g} in log10)"),
                       ("temperature_sigma_c", "temperature (sigma {:g} \u00b0C)"),
                       ("soil_co2_intercept_sigma_log10", "soil-CO2 intercept (sigma {:g} in log10)"),
-                      ("soil_co2_amplitude_sigma_log10", "soil-CO2 amplitude (sigma {:g} in log10)")):
+                      ("soil_co2_amplitude_sigma_log10", "soil-CO2 amplitude (sigma {:g} in log10)"),
+                      ("soil_co2_rate_sigma_ln", "soil-CO2 rate with AET (sigma {:g} in ln)")):
         if spec.get(key):
             words.append(text.format(spec[key]))
     for rock, ranges in (spec.get("saturation_ratio") or {}).items():
@@ -162,16 +163,19 @@ def perturbed_inputs(record: dict) -> str:
 
 
 def uncertainty_section(mapdir: Path) -> Section | None:
-    folder = find_folder(mapdir, "denudation_p05_mm_per_kyr.tif", "denudation_p95_mm_per_kyr.tif")
+    suffix, folder = ".tif", find_folder(mapdir, "denudation_p05_mm_per_kyr.tif", "denudation_p95_mm_per_kyr.tif")
+    if folder is None:      # a tiled run kept as VRTs over its tiles (--no-merge)
+        suffix, folder = ".vrt", find_folder(mapdir, "denudation_p05_mm_per_kyr.vrt", "denudation_p95_mm_per_kyr.vrt")
     if folder is None:
         return None
     record = read_json(folder / "run.json")
     draws = record.get("draws")
-    figures = [F.band_map(folder / "denudation_p05_mm_per_kyr.tif", folder / "denudation_p95_mm_per_kyr.tif",
+    p05, p95 = folder / f"denudation_p05_mm_per_kyr{suffix}", folder / f"denudation_p95_mm_per_kyr{suffix}"
+    figures = [F.band_map(p05, p95,
                           "Uncertainty: width of the rate band", "p95 - p05 of the maximum rate [mm/kyr]",
                           "uncertainty_band", "Width of the 90 % band of each cell's maximum rate (p95 minus p05 "
                           "over the draws): dark where the inputs' errors move the rate most; the colour scale stops at the 98th percentile.")]
-    tables, sources = [], [folder / "denudation_p05_mm_per_kyr.tif"]
+    tables, sources = [], [p05]
     if (folder / "zones_uncertainty.csv").is_file():
         header, rows = read_csv(folder / "zones_uncertainty.csv")
         sources.append(folder / "zones_uncertainty.csv")
