@@ -521,3 +521,23 @@ def test_report_renders_in_headless_chromium(demo, tmp_path):
     assert 0.05 < not_white < 0.95                        # text, the caution box and a map, not a blank page
     red = (picture[..., 0] > 150) & (picture[..., 1] < 40) & (picture[..., 2] < 40)
     assert red.sum() > 500                                # the caution's red frame is on the first screen
+
+
+def test_report_reads_bands_kept_as_vrts_over_tiles(demo, tmp_path):
+    # `denude uncertainty --tile-size --no-merge` keeps only VRTs over tiles/: the report's
+    # uncertainty section draws from them (GDAL reads a VRT like a GeoTIFF)
+    from pathlib import Path
+
+    mapdir = tmp_path / "map"
+    shutil.copytree(demo, mapdir, ignore=shutil.ignore_patterns("report*", "uncertainty"))
+    job = Path(__file__).resolve().parents[1] / "demo_rasters" / "job.toml"
+    result = runner.invoke(app, ["uncertainty", "--job", str(job), "--draws", "4", "--seed", "2", "--out",
+                                 str(mapdir / "bands"), "--tile-size", "256", "--workers", "0", "--no-merge", "-q"])
+    assert result.exit_code == 0, result.output
+    assert not list((mapdir / "bands").glob("*.tif")) and (mapdir / "bands" / "denudation_p95_mm_per_kyr.vrt").is_file()
+    result = runner.invoke(app, ["report", str(mapdir), "--out", str(tmp_path / "r.html")])
+    assert result.exit_code == 0, result.output
+    page = parse((tmp_path / "r.html").read_text(encoding="utf-8"))
+    assert "uncertainty_band" in {img["data-figure"] for img in page.images}
+    band_png = [p for p in tmp_path.rglob("uncertainty_band.png") if "map" not in p.parts]
+    assert len(band_png) == 1 and band_png[0].stat().st_size > 10_000     # a drawn map, not an empty frame
