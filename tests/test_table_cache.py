@@ -46,7 +46,7 @@ def test_a_cached_table_is_the_built_one_bit_for_bit(tmp_path, chemistry):
     assert (first[0], second[0], uncached[0]) == ("built", "file", "built (cache off)")
     assert first[1:] == second[1:] == uncached[1:]
     assert any(v > 0 for v in first[3])
-    assert len(list((tmp_path / "cache").glob("load_tables_*.npz"))) == 1
+    assert len(list((tmp_path / "cache").glob("load_tables_*.npy"))) == 1
     assert not list((tmp_path / "cache").glob(".*"))          # no temporary file left
 
 
@@ -55,15 +55,15 @@ def test_a_damaged_or_foreign_cache_file_is_rebuilt(tmp_path, monkeypatch):
     path = table_cache.table_path("white")
     path.write_bytes(b"not a table")
     assert table_cache._read(path) is None
-    good = tmp_path / "good.npz"
-    np.savez(good, stack=np.zeros((4, 181, 401), np.float32), grid=np.zeros(4))
-    for damaged in (good.read_bytes()[:200], b"PK\x03\x04" + b"\0" * 64):   # a truncated zip, zip-like garbage
+    good = tmp_path / "good.npy"
+    np.save(good, np.zeros((4, 181, 401), np.float32))
+    for damaged in (good.read_bytes()[:200], b"\x93NUMPY" + b"\0" * 64):   # a truncated array, header-like garbage
         path.write_bytes(damaged)
         assert table_cache._read(path) is None
     path.write_bytes(good.read_bytes()[:200])
     assert _run(str(tmp_path))[0] == "built"          # and the run goes on (no traceback)
     stack, grid = lookup._build_stacked_tables("white")
-    np.savez(path, stack=stack[:, :10], grid=np.asarray(grid))          # another shape
+    np.save(path, stack[:, :10])          # another shape
     assert table_cache._read(path) is not None
     with pytest.raises(ValueError, match="shape"):
         lookup.seed_stacked_tables("white", *table_cache._read(path))

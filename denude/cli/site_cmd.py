@@ -7,9 +7,6 @@ from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
-from rich.console import Console
-from rich.markup import escape
-from rich.table import Table
 
 from denude.api import rock_table, site as site_record
 from denude.cli.common import CAUTION, handle_user_errors
@@ -94,6 +91,11 @@ def site(
     if as_json:
         typer.echo(json.dumps(record, indent=2))
         return
+    # rich only here: every other command imports this module to register it, and pays nothing
+    from rich.console import Console
+    from rich.markup import escape
+    from rich.table import Table
+
     table = Table(title=f"Maximum denudation at one site ({rock_type.name}, {chemistry.value} chemistry)")
     table.add_column("quantity")
     table.add_column("value", justify="right")

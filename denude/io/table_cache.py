@@ -2,9 +2,11 @@
 
 Building the tables solves the equilibria on 181 x 401 nodes per mineral (about 0.1 s of
 Python, on the critical path of every run's start, in every batch worker process). The cache
-keeps them as ``.npz`` files keyed on the SHA-256 of the chemistry mode, the package and numpy
-versions, the machine architecture and the source of every module of ``denude.core`` (any change to the numerics makes a new
-key, so a stale table is never read) and seeds the core's in-process table with them.
+keeps them as ``.npy`` files (one float32 array; its grid is this code's, so part of the key)
+keyed on the SHA-256 of the chemistry mode, the package and numpy versions, the machine
+architecture and the source of every module of ``denude.core`` (any change to the numerics
+makes a new key, so a stale table is never read) and seeds the core's in-process table with
+them.
 
 Where: ``$DENUDE_CACHE_DIR``, else ``$XDG_CACHE_HOME/denude``, else ``~/.cache/denude``;
 ``DENUDE_CACHE_DIR=off`` disables it. Files are written under a temporary name and renamed,
@@ -63,7 +65,7 @@ def table_key(chemistry: str) -> str:
 
 def table_path(chemistry: str) -> Path | None:
     folder = cache_dir()
-    return None if folder is None else folder / f"load_tables_{chemistry}_{table_key(chemistry)[:24]}.npz"
+    return None if folder is None else folder / f"load_tables_{chemistry}_{table_key(chemistry)[:24]}.npy"
 
 
 def prime_tables(chemistry: str) -> str:
@@ -81,32 +83,31 @@ def prime_tables(chemistry: str) -> str:
                 return "file"
             except ValueError:
                 pass        # another layout (a damaged file): built again and replaced below
-    stack, grid = lookup.stacked_tables(chemistry)
+    stack, _ = lookup.stacked_tables(chemistry)
     if path is None:
         return "built (cache off)"
-    _write(path, stack, grid)
+    _write(path, stack)
     return "built"
 
 
 def _read(path: Path):
+    """(stack, grid) from a cache file, or None for a missing or damaged one."""
     try:
-        with np.load(path, allow_pickle=False) as data:
-            stack = np.ascontiguousarray(data["stack"])
-            grid = tuple(float(v) for v in data["grid"])
-    except Exception:     # any damage (truncated zip, foreign file): built again and replaced
+        stack = np.ascontiguousarray(np.load(path, allow_pickle=False))
+    except Exception:     # any damage (truncated, foreign file): built again and replaced
         return None
-    if stack.dtype != np.float32 or stack.ndim != 3 or len(grid) != 4 or not np.all(np.isfinite(stack)):
+    if stack.dtype != np.float32 or stack.ndim != 3 or not np.all(np.isfinite(stack)):
         return None
-    return stack, grid
+    return stack, lookup.stacked_grid()[1]
 
 
-def _write(path: Path, stack: np.ndarray, grid) -> None:
+def _write(path: Path, stack: np.ndarray) -> None:
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=".tmp", dir=path.parent)
         try:
             with os.fdopen(fd, "wb") as f:
-                np.savez(f, stack=stack, grid=np.asarray(grid, np.float64))
+                np.save(f, stack, allow_pickle=False)
             os.replace(tmp, path)
         except BaseException:
             Path(tmp).unlink(missing_ok=True)
