@@ -294,10 +294,10 @@ def test_rock_mass_dominant_rock_and_hazard(tmp_path):
 
 @pytest.mark.parametrize("workers", [1, 2])
 def test_sinkholes_and_planning_units(tmp_path, smooth, monkeypatch, workers):
-    import denude.execution.summaries as summaries
+    import denude.execution.summary_strips as summary_strips
 
     if workers > 1:
-        monkeypatch.setattr(summaries, "STRIP_CELLS", 16 * 50)  # 3 strips over 2 processes
+        monkeypatch.setattr(summary_strips, "STRIP_CELLS", 16 * 50)  # 3 strips over 2 processes
     outdir, rate = smooth
     zones = write_zones(tmp_path / "z.gpkg", [cell_box(0, 0, 10, 10), cell_box(10, 0, 20, 10)])
     units = write_zones(tmp_path / "u.gpkg", [cell_box(0, 0, 25, 40), cell_box(25, 0, 50, 40)], ids=[101, 102],
@@ -425,11 +425,12 @@ def test_cli_refuses_existing_output_and_missing_map(tmp_path, smooth):
 
 def test_strips_equal_one_strip(tmp_path, smooth, monkeypatch):
     import denude.execution.summaries as summaries
+    import denude.execution.summary_strips as summary_strips
 
     outdir, _ = smooth
     geoms = np.array([jagged(X0 + 25_000, Y0 - 20_000, 15_000, seed=s) for s in range(3)], dtype=object)
     whole = zone_partials(outdir, geoms, workers=1).finalize()
-    monkeypatch.setattr(summaries, "STRIP_CELLS", 16 * 50)      # 16-row strips: 3 strips
+    monkeypatch.setattr(summary_strips, "STRIP_CELLS", 16 * 50)      # 16-row strips: 3 strips
     datasets, grid = summaries.open_map_folder(outdir)
     assert len(summaries.strip_plan(grid, datasets[summaries.RATE_TIF])) == 3
     for ds in datasets.values():

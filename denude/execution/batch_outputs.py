@@ -17,8 +17,9 @@ from denude.execution.batch_tile import (
 from denude.execution.blocks import block_windows
 from denude.execution.plan import load_rocks, output_spec
 from denude.execution.summaries import (
-    SummaryLayers, _ZoneSet, locate_points, sample_points, summary_meta, summary_paths, summary_tables,
+    SummaryLayers, locate_points, summary_meta, summary_paths, summary_tables,
 )
+from denude.execution.summary_strips import ZoneSet, sample_points
 from denude.execution.tiling import Tile
 from denude.io.grid import Grid, cell_areas_km2
 from denude.io.jobfile import MapSettings
@@ -136,7 +137,7 @@ def zone_summary(out: Path, tiles: list[Tile], zones: ZoneSpec, grid: Grid) -> l
         for t in tiles:
             part = read_zone_partial(out / TILES_DIR / t.id / file)
             acc = part if acc is None else acc.merge(part)
-        sets.append(_ZoneSet(name, polygons[file], None, None, None, acc))
+        sets.append(ZoneSet(name, polygons[file], None, None, None, acc))
     point_rc, point_values = locate_points(points, grid, zones.points)
     if points is not None:
         sample_points(out, point_rc, point_values, lookup)
