@@ -66,7 +66,7 @@ def test_a_damaged_or_foreign_cache_file_is_rebuilt(tmp_path, monkeypatch):
     np.save(path, stack[:, :10])          # another shape
     assert table_cache._read(path) is not None
     with pytest.raises(ValueError, match="shape"):
-        lookup.seed_stacked_tables("white", *table_cache._read(path))
+        lookup.seed_stacked_tables("white", table_cache._read(path))
     # a fresh process takes neither: it rebuilds, and replaces the file with a good one
     result = _run(str(tmp_path))
     assert result[0] == "built" and result[1:] == _run("off")[1:]

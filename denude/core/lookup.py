@@ -109,18 +109,18 @@ def stacked_grid() -> tuple[tuple[int, int], tuple[float, float, float, float]]:
     return (n_t, n_p), (TEMPERATURE_MIN_C, TEMPERATURE_STEP_C, LOG_PCO2_MIN, LOG_PCO2_STEP)
 
 
-def seed_stacked_tables(chemistry: str, stack: np.ndarray, grid) -> None:
-    """Take ``stack`` (float32, (minerals, n_t, n_p)) with ``grid`` (t0, dt, lp0, dlp) as this
-    process's stacked tables of ``chemistry``, e.g. read back from a file cache of the same
-    build (``denude.io.table_cache``); ValueError for another shape, dtype or grid. Tables
-    already held are kept."""
+def seed_stacked_tables(chemistry: str, stack: np.ndarray) -> None:
+    """Take ``stack`` (float32, (minerals, n_t, n_p), on this module's grid) as this process's
+    stacked tables of ``chemistry``, e.g. read back from a file cache of the same build
+    (``denude.io.table_cache``); ValueError for another shape or dtype. Tables already held
+    are kept."""
     from denude.core.constants import MINERALS
 
     check_chemistry(chemistry)
     shape, expected = stacked_grid()
-    if stack.shape != (len(MINERALS),) + shape or stack.dtype != np.float32 or tuple(grid) != expected:
-        raise ValueError(f"stacked tables of shape {stack.shape}, {stack.dtype}, grid {tuple(grid)}; "
-                         f"expected {(len(MINERALS),) + shape}, float32, {expected}")
+    if stack.shape != (len(MINERALS),) + shape or stack.dtype != np.float32:
+        raise ValueError(f"stacked tables of shape {stack.shape}, {stack.dtype}; "
+                         f"expected {(len(MINERALS),) + shape}, float32")
     with _BUILD_LOCK:
         _STACKED.setdefault(chemistry, (np.ascontiguousarray(stack), expected))
 

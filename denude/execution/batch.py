@@ -317,8 +317,7 @@ class BatchJob:
             return
         resolved, size, grid = self.resolved, self.size, self.grid
         block = min(resolved.block_size, size)
-        tile_layout = choose_layout(resolved.layout, Grid(grid.crs_wkt, grid.transform, min(size, grid.width),
-                                                          min(size, grid.height)))
+        tile_layout = choose_layout(resolved.layout, self.tiles[0].grid(grid))   # the first tile is a full one
         engine = _engines.make_engine(self.workers, self.scheduler)
         with engine:
             self.engine_name, self.link = engine.describe(), engine.dashboard_link

@@ -117,13 +117,12 @@ def run_draw_tiles(staging: Path, tiles: list[Tile], settings: MapSettings, grid
                    valid_area: np.ndarray, progress=None, workers=None, scheduler=None, merge: bool = True,
                    note=None):
     """Run every tile on the engine of ``workers`` (local processes, 0: this process) or
-    ``scheduler`` (Dask), add their zone
-    sums into ``sums``/``valid_area``, then write the band VRTs (and merged GeoTIFFs).
+    ``scheduler`` (Dask), add their zone sums into ``sums``/``valid_area``, then write the
+    band VRTs (and merged GeoTIFFs).
     Returns (BlockCounts total, clipped draws, codes found, output names, engine description)."""
     tiles_dir = staging / TILES_DIR
     tiles_dir.mkdir()
-    tile_layout = choose_layout(settings.layout, Grid(grid.crs_wkt, grid.transform, min(tiles[0].width, grid.width),
-                                                      min(tiles[0].height, grid.height)))
+    tile_layout = choose_layout(settings.layout, tiles[0].grid(grid))     # the first tile is a full one
     geometry = dataclasses.replace(zplan, layer=None) if zplan is not None else None
     tasks = [DrawTileTask(settings, grid, t, str(tiles_dir), spec, seed, n_draws, table, geometry, tile_layout,
                           tile_gdal_env(settings)) for t in tiles]

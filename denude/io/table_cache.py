@@ -79,7 +79,7 @@ def prime_tables(chemistry: str) -> str:
         cached = _read(path)
         if cached is not None:
             try:
-                lookup.seed_stacked_tables(chemistry, *cached)
+                lookup.seed_stacked_tables(chemistry, cached)
                 return "file"
             except ValueError:
                 pass        # another layout (a damaged file): built again and replaced below
@@ -90,15 +90,15 @@ def prime_tables(chemistry: str) -> str:
     return "built"
 
 
-def _read(path: Path):
-    """(stack, grid) from a cache file, or None for a missing or damaged one."""
+def _read(path: Path) -> np.ndarray | None:
+    """The stacked tables of a cache file, or None for a missing or damaged one."""
     try:
         stack = np.ascontiguousarray(np.load(path, allow_pickle=False))
     except Exception:     # any damage (truncated, foreign file): built again and replaced
         return None
     if stack.dtype != np.float32 or stack.ndim != 3 or not np.all(np.isfinite(stack)):
         return None
-    return stack, lookup.stacked_grid()[1]
+    return stack
 
 
 def _write(path: Path, stack: np.ndarray) -> None:
